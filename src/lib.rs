@@ -7,7 +7,14 @@
 //!       --chain--> counts and smoothed chains --model--> saved model
 //!       --gen--> traces --trace--> readable, replayable text
 //! ```
+pub mod atomic;
+pub mod chain;
 pub mod escape;
+pub mod generate;
+pub mod inspect;
+pub mod model;
 pub mod read;
+pub mod score;
 pub mod symbol;
 pub mod token;
+pub mod trace;

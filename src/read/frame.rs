@@ -20,7 +20,6 @@ pub fn frame_lines(bytes: &[u8], skips: &mut Skips) -> Vec<Frame> {
     frames
 }
 
-
 #[cfg(test)]
 mod tests {
     use super::*;

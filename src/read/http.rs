@@ -22,8 +22,7 @@ pub fn looks_like_start_line(line: &[u8]) -> bool {
             && rest[4..7].iter().all(u8::is_ascii_digit);
     }
     let mut parts = line.splitn(3, |&b| b == b' ');
-    let (Some(method), Some(target), Some(version)) = (parts.next(), parts.next(), parts.next())
-    else {
+    let (Some(method), Some(target), Some(version)) = (parts.next(), parts.next(), parts.next()) else {
         return false;
     };
     !method.is_empty()
@@ -115,14 +114,14 @@ fn message_len(buf: &[u8]) -> Outcome {
     };
     let framing = match body_framing(&headers) {
         Ok(f) => f,
-        Err(()) => return Outcome::Invalid,
+        Err(InvalidFraming) => return Outcome::Invalid,
     };
     let body = &buf[head_len..];
     let body_len = match framing {
         BodyFraming::Chunked => match chunked_len(body) {
             Ok(Some(n)) => n,
             Ok(None) => return Outcome::Truncated,
-            Err(()) => return Outcome::Invalid,
+            Err(InvalidFraming) => return Outcome::Invalid,
         },
         BodyFraming::Length(n) => {
             if body.len() < n {
@@ -146,6 +145,11 @@ fn message_len(buf: &[u8]) -> Outcome {
     Outcome::Message(head_len + body_len, role)
 }
 
+/// The framing fields of a message contradict RFC 9112 (conflicting lengths, bad chunk syntax…).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, thiserror::Error)]
+#[error("invalid HTTP message framing")]
+pub struct InvalidFraming;
+
 /// How the body of a message is delimited.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum BodyFraming {
@@ -156,7 +160,7 @@ pub enum BodyFraming {
 
 /// Reads the framing from header fields (RFC 9112 §6.3): chunked wins over Content-Length;
 /// differing Content-Length values are invalid.
-pub fn body_framing(headers: &[httparse::Header<'_>]) -> Result<BodyFraming, ()> {
+pub fn body_framing(headers: &[httparse::Header<'_>]) -> Result<BodyFraming, InvalidFraming> {
     let mut length: Option<usize> = None;
     let mut chunked = false;
     for h in headers.iter().take_while(|h| !h.name.is_empty()) {
@@ -164,16 +168,16 @@ pub fn body_framing(headers: &[httparse::Header<'_>]) -> Result<BodyFraming, ()>
             let last = h.value.rsplit(|&b| b == b',').next().unwrap_or(b"");
             chunked = last.trim_ascii().eq_ignore_ascii_case(b"chunked");
             if !chunked {
-                return Err(());
+                return Err(InvalidFraming);
             }
         } else if h.name.eq_ignore_ascii_case("content-length") {
-            let text = std::str::from_utf8(h.value).map_err(|_| ())?.trim();
+            let text = std::str::from_utf8(h.value).map_err(|_| InvalidFraming)?.trim();
             if text.is_empty() || !text.bytes().all(|b| b.is_ascii_digit()) {
-                return Err(());
+                return Err(InvalidFraming);
             }
-            let n: usize = text.parse().map_err(|_| ())?;
+            let n: usize = text.parse().map_err(|_| InvalidFraming)?;
             if length.is_some_and(|l| l != n) {
-                return Err(());
+                return Err(InvalidFraming);
             }
             length = Some(n);
         }
@@ -188,28 +192,28 @@ pub fn body_framing(headers: &[httparse::Header<'_>]) -> Result<BodyFraming, ()>
 }
 
 /// Length of a chunked body including the last chunk and trailer section. `Ok(None)`: truncated.
-pub fn chunked_len(body: &[u8]) -> Result<Option<usize>, ()> {
+pub fn chunked_len(body: &[u8]) -> Result<Option<usize>, InvalidFraming> {
     let mut pos = 0;
     loop {
         let (consumed, size) = match httparse::parse_chunk_size(&body[pos..]) {
             Ok(httparse::Status::Complete(x)) => x,
             Ok(httparse::Status::Partial) => return Ok(None),
-            Err(_) => return Err(()),
+            Err(_) => return Err(InvalidFraming),
         };
         pos += consumed;
         if size == 0 {
             break;
         }
-        let size = usize::try_from(size).map_err(|_| ())?;
+        let size = usize::try_from(size).map_err(|_| InvalidFraming)?;
         if size > MAX_MESSAGE_BYTES {
-            return Err(());
+            return Err(InvalidFraming);
         }
         if body.len() < pos + size + 2 {
             return Ok(None);
         }
         pos += size;
         if &body[pos..pos + 2] != b"\r\n" {
-            return Err(());
+            return Err(InvalidFraming);
         }
         pos += 2;
     }

@@ -22,7 +22,7 @@ use serde::{Deserialize, Serialize};
 use thiserror::Error;
 
 pub use frame::frame_lines;
-pub use http::{BodyFraming, chunked_len, dechunk, frame_http};
+pub use http::{BodyFraming, InvalidFraming, chunked_len, dechunk, frame_http};
 pub use manifest::{CorpusManifest, MANIFEST_NAME, options_from_manifests};
 
 /// The wire format of a corpus.
@@ -134,11 +134,7 @@ impl Skips {
     }
     /// One line such as `3 lines not JSON, 1 truncated HTTP message`.
     pub fn summary(&self) -> String {
-        self.by_reason
-            .iter()
-            .map(|(reason, n)| format!("{n} {reason}"))
-            .collect::<Vec<_>>()
-            .join(", ")
+        self.by_reason.iter().map(|(reason, n)| format!("{n} {reason}")).collect::<Vec<_>>().join(", ")
     }
 }
 
@@ -160,11 +156,7 @@ impl Corpus {
 
     /// Number of request messages (what the chains learn).
     pub fn request_count(&self) -> usize {
-        self.sessions
-            .iter()
-            .flat_map(|s| &s.frames)
-            .filter(|f| f.role == Role::Request)
-            .count()
+        self.sessions.iter().flat_map(|s| &s.frames).filter(|f| f.role == Role::Request).count()
     }
 }
 
@@ -188,8 +180,7 @@ fn bad(path: &Path, message: impl Into<String>) -> ReadError {
 pub fn list_files(paths: &[PathBuf]) -> Result<Vec<PathBuf>, ReadError> {
     let mut files = Vec::new();
     for path in paths {
-        let meta = std::fs::metadata(path)
-            .map_err(|source| ReadError::Io { path: path.clone(), source })?;
+        let meta = std::fs::metadata(path).map_err(|source| ReadError::Io { path: path.clone(), source })?;
         if meta.is_dir() {
             match CorpusManifest::load_in(path)? {
                 Some(manifest) => files.extend(manifest.files(path)?),
@@ -203,8 +194,7 @@ pub fn list_files(paths: &[PathBuf]) -> Result<Vec<PathBuf>, ReadError> {
 }
 
 fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<(), ReadError> {
-    let entries =
-        std::fs::read_dir(dir).map_err(|source| ReadError::Io { path: dir.into(), source })?;
+    let entries = std::fs::read_dir(dir).map_err(|source| ReadError::Io { path: dir.into(), source })?;
     let mut paths: Vec<PathBuf> = entries
         .filter_map(|e| e.ok())
         .map(|e| e.path())
@@ -212,8 +202,7 @@ fn walk(dir: &Path, out: &mut Vec<PathBuf>) -> Result<(), ReadError> {
         .collect();
     paths.sort();
     for path in paths {
-        let meta = std::fs::metadata(&path)
-            .map_err(|source| ReadError::Io { path: path.clone(), source })?;
+        let meta = std::fs::metadata(&path).map_err(|source| ReadError::Io { path: path.clone(), source })?;
         if meta.is_dir() {
             walk(&path, out)?;
         } else if meta.is_file() {
@@ -262,8 +251,7 @@ struct Plan {
 }
 
 fn compile_regex(what: &str, pattern: &str) -> Result<regex::bytes::Regex, ReadError> {
-    regex::bytes::Regex::new(pattern)
-        .map_err(|e| bad(Path::new(what), format!("bad regex `{pattern}`: {e}")))
+    regex::bytes::Regex::new(pattern).map_err(|e| bad(Path::new(what), format!("bad regex `{pattern}`: {e}")))
 }
 
 /// Reads `sources` into a corpus. `what` names the input in errors (e.g. the paths given).
@@ -294,7 +282,13 @@ pub fn read(sources: Vec<Source>, options: &ReadOptions, what: &str) -> Result<C
         frame_source(&plan, index, source, &mut sessions, &mut skips);
     }
     sessions.retain(|s: &Session| s.frames.iter().any(|f| f.role == Role::Request));
-    let corpus = Corpus { format, options: ReadOptions { format: Some(format), ..options.clone() }, sources, sessions, skips };
+    let corpus = Corpus {
+        format,
+        options: ReadOptions { format: Some(format), ..options.clone() },
+        sources,
+        sessions,
+        skips,
+    };
     if corpus.sessions.is_empty() {
         let detail = if corpus.skips.total() > 0 {
             format!(" (skipped: {})", corpus.skips.summary())
@@ -315,8 +309,7 @@ fn frame_source(plan: &Plan, index: usize, source: &Source, sessions: &mut Vec<S
             if plan.format == Format::Jsonl {
                 frames.retain(|f| {
                     let line = trim_line_end(&bytes[f.range.clone()]);
-                    let ok = line.is_empty()
-                        || serde_json::from_slice::<serde::de::IgnoredAny>(line).is_ok();
+                    let ok = line.is_empty() || serde_json::from_slice::<serde::de::IgnoredAny>(line).is_ok();
                     if !ok {
                         skips.add("lines not JSON", 1);
                     }
@@ -442,11 +435,8 @@ mod tests {
         };
         let corpus = read(vec![src("log", log)], &options, "log").unwrap();
         assert_eq!(corpus.sessions.len(), 2);
-        let texts: Vec<Vec<&[u8]>> = corpus
-            .sessions
-            .iter()
-            .map(|s| s.frames.iter().map(|f| corpus.bytes(s, f)).collect())
-            .collect();
+        let texts: Vec<Vec<&[u8]>> =
+            corpus.sessions.iter().map(|s| s.frames.iter().map(|f| corpus.bytes(s, f)).collect()).collect();
         assert_eq!(texts[0], vec![&b"c1 LOGIN\n"[..], b"c1 GET 4\n"]);
         assert_eq!(texts[1], vec![&b"c2 LOGIN\n"[..], b"c2 BYE\n"]);
         assert_eq!(corpus.skips.by_reason["lines without a session key"], 1);
@@ -455,11 +445,8 @@ mod tests {
     #[test]
     fn idle_gap_starts_new_sessions() {
         let log = b"2026-11-30T08:00:00Z a\n2026-11-30T08:00:10Z b\n2026-11-30T09:00:00Z c\n";
-        let options = ReadOptions {
-            format: Some(Format::Lines),
-            idle_gap_ms: Some(60_000),
-            ..Default::default()
-        };
+        let options =
+            ReadOptions { format: Some(Format::Lines), idle_gap_ms: Some(60_000), ..Default::default() };
         let corpus = read(vec![src("log", log)], &options, "log").unwrap();
         let sizes: Vec<usize> = corpus.sessions.iter().map(|s| s.frames.len()).collect();
         assert_eq!(sizes, vec![2, 1]);

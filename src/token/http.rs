@@ -64,8 +64,8 @@ fn head(t: &Tokenizer, out: &mut Tokenized, head_len: usize) {
     let mut line_start = 0;
     let mut first = true;
     while line_start < head_len {
-        let line_end = memchr::memchr(b'\n', &out.arena[line_start..head_len])
-            .map_or(head_len, |i| line_start + i + 1);
+        let line_end =
+            memchr::memchr(b'\n', &out.arena[line_start..head_len]).map_or(head_len, |i| line_start + i + 1);
         let content_end = line_start + crate::read::trim_line_end(&out.arena[line_start..line_end]).len();
         if first {
             start_line(t, out, line_start, content_end);
@@ -105,7 +105,8 @@ fn field_line(t: &Tokenizer, out: &mut Tokenized, start: usize, end: usize) {
         return;
     };
     let value_start = colon + 1 + line[colon + 1..].iter().take_while(|b| matches!(b, b' ' | b'\t')).count();
-    let value_end = line.len() - line[value_start..].iter().rev().take_while(|b| matches!(b, b' ' | b'\t')).count();
+    let value_end =
+        line.len() - line[value_start..].iter().rev().take_while(|b| matches!(b, b' ' | b'\t')).count();
     let is_length = line[..colon].eq_ignore_ascii_case(b"content-length");
     out.push(PieceKind::Lit, start, start + value_start);
     if value_end > value_start {

@@ -90,7 +90,15 @@ impl Lexer {
         let mut patterns: Vec<&str> = rules.rules.iter().map(|r| r.pattern.as_str()).collect();
         patterns.extend(STRUCTURE);
         let all = build(&patterns).map_err(|e| err(format!("cannot combine patterns: {e}")))?;
-        Ok(Lexer { all, rules: rules.rules.len(), rule_class, rule_group, rule_refine, rule_requires, classes })
+        Ok(Lexer {
+            all,
+            rules: rules.rules.len(),
+            rule_class,
+            rule_group,
+            rule_refine,
+            rule_requires,
+            classes,
+        })
     }
 
     /// Class names; `PieceKind::Slot(i)` refers to `classes()[i]`.
@@ -138,7 +146,10 @@ impl Lexer {
             return;
         };
         let mut caps = re.create_captures();
-        re.search_captures(&Input::new(&out.arena[..end]).span(start..end).anchored(Anchored::Yes), &mut caps);
+        re.search_captures(
+            &Input::new(&out.arena[..end]).span(start..end).anchored(Anchored::Yes),
+            &mut caps,
+        );
         let Some(span) = caps.get_group(*group) else {
             out.push(PieceKind::Lit, start, end);
             return;

@@ -102,7 +102,11 @@ mod tests {
     fn chunked_bodies_get_correct_chunk_sizes() {
         let mut out = Vec::new();
         render(
-            [Part::Lit(b"PUT /b HTTP/1.1\r\nTransfer-Encoding: chunked\r\n\r\n"), Part::Body(Framing::Chunked), Part::Value(&[b'x'; 26])],
+            [
+                Part::Lit(b"PUT /b HTTP/1.1\r\nTransfer-Encoding: chunked\r\n\r\n"),
+                Part::Body(Framing::Chunked),
+                Part::Value(&[b'x'; 26]),
+            ],
             &mut out,
         );
         let mut expected = b"PUT /b HTTP/1.1\r\nTransfer-Encoding: chunked\r\n\r\n1a\r\n".to_vec();
@@ -115,7 +119,12 @@ mod tests {
     fn unframed_body_gets_a_length_field_and_skew_is_applied() {
         let mut out = Vec::new();
         render_skewed(
-            [Part::Lit(b"GET /c HTTP/1.1\r\n"), Part::Lit(b"\r\n"), Part::Body(Framing::None), Part::Lit(b"abc")],
+            [
+                Part::Lit(b"GET /c HTTP/1.1\r\n"),
+                Part::Lit(b"\r\n"),
+                Part::Body(Framing::None),
+                Part::Lit(b"abc"),
+            ],
             Skew { content_length: 2 },
             &mut out,
         );

@@ -8,7 +8,9 @@ fn pieces(format: Format, message: &[u8]) -> Vec<String> {
         .iter()
         .map(|p| match p.kind {
             PieceKind::Lit => crate::escape::escape(out.bytes(p)),
-            PieceKind::Slot(c) => format!("{{{}={}}}", t.classes()[c as usize], crate::escape::escape(out.bytes(p))),
+            PieceKind::Slot(c) => {
+                format!("{{{}={}}}", t.classes()[c as usize], crate::escape::escape(out.bytes(p)))
+            }
             PieceKind::Derived(_) => format!("{{=len {}}}", crate::escape::escape(out.bytes(p))),
             PieceKind::Body(f) => format!("{{body {f:?}}}"),
         })
@@ -26,7 +28,10 @@ fn lines_get_typed_slots() {
         "SET| |zone|=|{int=4}| |level|=|{int=70}|\\n"
     );
     assert_eq!(
-        joined(Format::Lines, b"from 192.0.2.7 at 2026-11-30T08:15:02.123Z id=3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b\r\n"),
+        joined(
+            Format::Lines,
+            b"from 192.0.2.7 at 2026-11-30T08:15:02.123Z id=3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b\r\n"
+        ),
         "from| |{ipv4=192.0.2.7}| |at| |{timestamp=2026-11-30T08:15:02.123Z}| |id|=|{uuid=3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b}|\\r\\n"
     );
     assert_eq!(
@@ -59,7 +64,10 @@ fn quoted_values_are_refined() {
 #[test]
 fn json_is_tokenized_structurally() {
     assert_eq!(
-        joined(Format::Jsonl, br#"{"visit":"3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b","n":-3,"x":1.5e3,"ok":true,"s":"hi","e":""}"#),
+        joined(
+            Format::Jsonl,
+            br#"{"visit":"3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b","n":-3,"x":1.5e3,"ok":true,"s":"hi","e":""}"#
+        ),
         r#"{|"visit"|:|"|{uuid=3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b}|"|,|"n"|:|{int=-3}|,|"x"|:|{decimal=1.5e3}|,|"ok"|:|true|,|"s"|:|"|{string=hi}|"|,|"e"|:|"|{string=}|"|}"#
     );
 }

@@ -99,10 +99,7 @@ impl Vocab {
                 }
             }
         }
-        let slot_of_class = classes
-            .iter()
-            .map(|c| by_token.get(&Token::Slot(c.clone())).copied())
-            .collect();
+        let slot_of_class = classes.iter().map(|c| by_token.get(&Token::Slot(c.clone())).copied()).collect();
         Vocab { tokens, lits, by_token, slot_of_class }
     }
 

@@ -1,0 +1,123 @@
+//! Command-line interface.
+
+mod gen_cmd;
+mod learn;
+mod score;
+mod show;
+
+use std::path::PathBuf;
+
+use clap::{Parser, Subcommand};
+
+/// Learn the grammar of protocol traffic as Markov chains and use it to test software.
+#[derive(Debug, Parser)]
+#[command(name = "tracewalk", version, about, max_term_width = 100)]
+struct Cli {
+    #[command(subcommand)]
+    command: Command,
+}
+
+#[derive(Debug, Subcommand)]
+enum Command {
+    /// Learn a model from sample traffic (files or directories).
+    Learn(learn::Args),
+    /// Print what a model learned.
+    Show(show::Args),
+    /// Generate traces from a model.
+    Gen(gen_cmd::Args),
+    /// Print each message's surprise under a model and flag the unusual ones.
+    Score(score::Args),
+    /// Add models learned on separate shards of data.
+    Merge(MergeArgs),
+    /// Print the built-in slot rules (a starting point for a rules file of your own).
+    Rules,
+}
+
+#[derive(Debug, clap::Args)]
+struct MergeArgs {
+    /// Models to add (at least two).
+    #[arg(required = true, num_args = 2..)]
+    models: Vec<PathBuf>,
+    /// Where to write the merged model.
+    #[arg(short, long)]
+    output: PathBuf,
+    /// Write the compact binary encoding instead of YAML.
+    #[arg(long)]
+    binary: bool,
+}
+
+/// Runs the command line; returns the exit code.
+pub fn run() -> i32 {
+    let cli = match Cli::try_parse() {
+        Ok(cli) => cli,
+        Err(e) => {
+            let _ = e.print();
+            return if e.use_stderr() { 2 } else { 0 };
+        }
+    };
+    let result = match cli.command {
+        Command::Learn(a) => learn::run(a),
+        Command::Show(a) => show::run(a),
+        Command::Gen(a) => gen_cmd::run(a),
+        Command::Score(a) => score::run(a),
+        Command::Merge(a) => merge(a),
+        Command::Rules => {
+            print!("{}", tracewalk::token::rules::BUILTIN_RULES_YAML);
+            Ok(0)
+        }
+    };
+    match result {
+        Ok(code) => code,
+        Err(e) => {
+            let text = format!("{e:#}");
+            eprintln!("tracewalk: {}", text.lines().next().unwrap_or("error"));
+            2
+        }
+    }
+}
+
+fn merge(args: MergeArgs) -> anyhow::Result<i32> {
+    let mut merged = tracewalk::model::load(&args.models[0])?;
+    for path in &args.models[1..] {
+        let next = tracewalk::model::load(path)?;
+        merged = merged.merge(&next).map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
+    }
+    save_model(&merged, &args.output, args.binary)?;
+    eprintln!(
+        "merged {} models: {} sessions, {} messages; wrote {} ({})",
+        args.models.len(),
+        merged.totals.sessions,
+        merged.totals.messages,
+        args.output.display(),
+        &tracewalk::model::content_hash(&merged)[..16]
+    );
+    Ok(0)
+}
+
+fn save_model(model: &tracewalk::model::Model, path: &std::path::Path, binary: bool) -> anyhow::Result<()> {
+    let encoding = if binary { tracewalk::model::Encoding::Binary } else { tracewalk::model::Encoding::Yaml };
+    tracewalk::model::save(model, path, encoding)?;
+    Ok(())
+}
+
+/// Loads and compiles a model file.
+fn load_compiled(path: &std::path::Path) -> anyhow::Result<tracewalk::model::Compiled> {
+    let (model, hash) = tracewalk::model::load_with_hash(path)?;
+    Ok(tracewalk::model::Compiled::new(model, hash)?)
+}
+
+/// Parses durations like `250ms`, `30s`, `5m`, `2h` (a bare number is seconds).
+fn parse_duration_ms(text: &str) -> Result<u64, String> {
+    let text = text.trim();
+    let split = text.find(|c: char| !c.is_ascii_digit() && c != '.').unwrap_or(text.len());
+    let (num, unit) = text.split_at(split);
+    let value: f64 = num.parse().map_err(|_| format!("bad duration `{text}`"))?;
+    let scale = match unit {
+        "ms" => 1.0,
+        "" | "s" => 1000.0,
+        "m" | "min" => 60_000.0,
+        "h" => 3_600_000.0,
+        _ => return Err(format!("bad duration unit in `{text}` (use ms, s, m or h)")),
+    };
+    Ok((value * scale).round() as u64)
+}

@@ -1,0 +1,157 @@
+//! Walking the chains: one trace as a sequence of steps.
+
+use rand::{Rng, RngExt};
+
+use super::GenOptions;
+use crate::chain::Chain;
+use crate::model::Compiled;
+use crate::symbol::{END, NOVEL};
+use crate::token::render::Skew;
+
+/// One generated message before rendering.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Step {
+    /// Session symbol of the template, or [`NOVEL`] for a template the model has not seen.
+    pub template: u32,
+    /// Token symbols of the message.
+    pub tokens: Vec<u32>,
+    /// One value per slot, in order.
+    pub values: Vec<Vec<u8>>,
+    /// −log2 probability of the step under the model (template choice, plus tokens if novel).
+    pub surprise: f64,
+    /// Annotations (`novel`, …).
+    pub marks: Vec<String>,
+    /// Deliberate damage to derived fields.
+    pub skew: Skew,
+}
+
+impl Step {
+    /// The wire bytes of this step.
+    pub fn render(&self, model: &Compiled) -> Vec<u8> {
+        let values: Vec<&[u8]> = self.values.iter().map(|v| v.as_slice()).collect();
+        model.render(&self.tokens, &values, self.skew)
+    }
+}
+
+/// A generated session.
+#[derive(Debug, Clone, PartialEq, Default)]
+pub struct Walk {
+    pub steps: Vec<Step>,
+    /// False when the walk was cut at the message limit before the chain ended it.
+    pub ended: bool,
+}
+
+impl Walk {
+    /// Session symbols of the steps.
+    pub fn templates(&self) -> Vec<u32> {
+        self.steps.iter().map(|s| s.template).collect()
+    }
+}
+
+/// Draws the next symbol with temperature `t` (exactly p^(1/t) renormalised).
+pub fn sample_tempered<R: Rng + ?Sized>(
+    chain: &Chain,
+    history: &[u32],
+    t: f64,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> u32 {
+    if t == 1.0 {
+        return chain.sample(history, rng);
+    }
+    let floor = chain.distribution(history, scratch);
+    let rest = (chain.symbols() - 1) as usize - scratch.len();
+    let inv = 1.0 / t;
+    let rest_weight = if floor > 0.0 { rest as f64 * floor.powf(inv) } else { 0.0 };
+    let total: f64 = scratch.iter().map(|e| e.1.powf(inv)).sum::<f64>() + rest_weight;
+    let mut target = rng.random::<f64>() * total;
+    for &(s, p) in scratch.iter() {
+        target -= p.powf(inv);
+        if target < 0.0 {
+            return s;
+        }
+    }
+    if rest > 0 {
+        return unlisted_symbol(chain, scratch, rng);
+    }
+    scratch.last().map_or(END, |e| e.0)
+}
+
+/// A uniformly drawn predictable symbol not in the sorted list `listed`.
+pub fn unlisted_symbol<R: Rng + ?Sized>(chain: &Chain, listed: &[(u32, f64)], rng: &mut R) -> u32 {
+    let n = chain.symbols();
+    for _ in 0..64 {
+        let s = rng.random_range(1..n);
+        if listed.binary_search_by_key(&s, |e| e.0).is_err() {
+            return s;
+        }
+    }
+    (1..n).find(|s| listed.binary_search_by_key(s, |e| e.0).is_err()).unwrap_or(END)
+}
+
+/// Builds a new message with the message chain; returns tokens and the surprise in bits.
+pub fn novel_tokens<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &GenOptions,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> (Vec<u32>, f64) {
+    let mut tokens = Vec::new();
+    let mut bits = 0.0;
+    while tokens.len() < options.max_tokens {
+        let s = sample_tempered(&model.message, &tokens, options.temperature, rng, scratch);
+        bits -= model.message.prob(&tokens, s).log2();
+        if s == END {
+            break;
+        }
+        tokens.push(s);
+    }
+    (tokens, bits)
+}
+
+/// Fills the slots of `tokens` from the pools.
+pub fn fill_values<R: Rng + ?Sized>(
+    model: &Compiled,
+    tokens: &[u32],
+    template: u32,
+    rng: &mut R,
+) -> Vec<Vec<u8>> {
+    let slots =
+        if template == NOVEL { model.slots_of(tokens) } else { model.template_slots(template).to_vec() };
+    slots
+        .iter()
+        .map(|slot| match slot.pool {
+            Some(p) => model.sample_value(p, rng).to_vec(),
+            None => b"0".to_vec(),
+        })
+        .collect()
+}
+
+/// A plausible walk.
+pub fn plausible<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut R) -> Walk {
+    let mut walk = Walk::default();
+    let mut history: Vec<u32> = Vec::new();
+    let mut scratch = Vec::new();
+    while walk.steps.len() < options.max_messages {
+        let s = sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch);
+        let mut surprise = -model.session.prob(&history, s).log2();
+        if s == END {
+            walk.ended = true;
+            return walk;
+        }
+        let (tokens, template, marks) = if s == NOVEL {
+            let (tokens, bits) = novel_tokens(model, options, rng, &mut scratch);
+            surprise += bits;
+            match model.template_symbol(&tokens) {
+                Some(t) => (tokens, t, Vec::new()),
+                None => (tokens, NOVEL, vec!["novel".to_string()]),
+            }
+        } else {
+            (model.template(s).unwrap_or_default().to_vec(), s, Vec::new())
+        };
+        let values = fill_values(model, &tokens, template, rng);
+        history.push(s);
+        walk.steps.push(Step { template, tokens, values, surprise, marks, skew: Skew::default() });
+    }
+    walk
+}
