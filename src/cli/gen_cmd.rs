@@ -40,7 +40,7 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
         max_messages: a.max_messages,
         ..GenOptions::default()
     };
-    let generator = Generator::new(&model, options)?;
+    let mut generator = Generator::new(&model, options)?;
     if let Some(dir) = &a.output {
         std::fs::create_dir_all(dir).map_err(|e| anyhow::anyhow!("{}: cannot create: {e}", dir.display()))?;
     }

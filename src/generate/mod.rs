@@ -105,14 +105,16 @@ impl<'m> Generator<'m> {
         &self.options
     }
 
-    /// The walk of trace `index` of the batch seeded with `seed`.
-    pub fn walk(&self, seed: u64, index: u64) -> Walk {
+    /// The walk of trace `index` of the batch seeded with `seed`. Takes `&mut self` because
+    /// some modes remember what earlier walks of the run did; output is deterministic for a
+    /// given sequence of calls.
+    pub fn walk(&mut self, seed: u64, index: u64) -> Walk {
         let mut rng = trace_rng(seed, index);
         walk::plausible(self.model, &self.options, &mut rng)
     }
 
     /// Trace `index` of the batch seeded with `seed`, annotated.
-    pub fn trace(&self, seed: u64, index: u64) -> Trace {
+    pub fn trace(&mut self, seed: u64, index: u64) -> Trace {
         let walk = self.walk(seed, index);
         let mut trace = walk.to_trace(self.model);
         trace.header = vec![
