@@ -19,17 +19,42 @@ pub struct Step {
     pub values: Vec<Vec<u8>>,
     /// −log2 probability of the step under the model (template choice, plus tokens if novel).
     pub surprise: f64,
-    /// Annotations (`novel`, …).
+    /// Annotations (`novel`, `rare`, `hostile:2:int32-max`, …).
     pub marks: Vec<String>,
     /// Deliberate damage to derived fields.
     pub skew: Skew,
+    /// Bytes written instead of rendering `tokens`: a message read from traffic that the model
+    /// cannot reproduce (unknown tokens, or a form the renderer normalises, such as a body in
+    /// several chunks). Edits that change `tokens` or `values` clear it.
+    pub verbatim: Option<Vec<u8>>,
 }
 
 impl Step {
+    /// A step of a known template with the given slot values.
+    pub fn of_template(model: &Compiled, template: u32, values: Vec<Vec<u8>>, surprise: f64) -> Step {
+        Step {
+            template,
+            tokens: model.template(template).unwrap_or_default().to_vec(),
+            values,
+            surprise,
+            marks: Vec::new(),
+            skew: Skew::default(),
+            verbatim: None,
+        }
+    }
+
     /// The wire bytes of this step.
     pub fn render(&self, model: &Compiled) -> Vec<u8> {
+        if let Some(bytes) = &self.verbatim {
+            return bytes.clone();
+        }
         let values: Vec<&[u8]> = self.values.iter().map(|v| v.as_slice()).collect();
         model.render(&self.tokens, &values, self.skew)
+    }
+
+    /// True when the model cannot edit this step's tokens (it is kept as raw bytes).
+    pub fn is_opaque(&self) -> bool {
+        self.verbatim.is_some() && self.tokens.is_empty()
     }
 }
 
@@ -45,6 +70,16 @@ impl Walk {
     /// Session symbols of the steps.
     pub fn templates(&self) -> Vec<u32> {
         self.steps.iter().map(|s| s.template).collect()
+    }
+
+    /// The wire bytes of all steps, concatenated.
+    pub fn wire_bytes(&self, model: &Compiled) -> Vec<u8> {
+        self.steps.iter().flat_map(|s| s.render(model)).collect()
+    }
+
+    /// Number of steps marked as forced rare steps.
+    pub fn rare_steps(&self) -> usize {
+        self.steps.iter().filter(|s| s.marks.iter().any(|m| m == "rare")).count()
     }
 }
 
@@ -127,6 +162,30 @@ pub fn fill_values<R: Rng + ?Sized>(
         .collect()
 }
 
+/// The step for session symbol `s` (a template, or [`NOVEL`]: a new message from the message
+/// chain), with slots filled from the pools. `surprise` is that of the session step; a novel
+/// message adds the bits of its tokens.
+pub fn make_step<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &GenOptions,
+    s: u32,
+    surprise: f64,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> Step {
+    if s != NOVEL {
+        let values = fill_values(model, model.template(s).unwrap_or_default(), s, rng);
+        return Step::of_template(model, s, values, surprise);
+    }
+    let (tokens, bits) = novel_tokens(model, options, rng, scratch);
+    let (template, marks) = match model.template_symbol(&tokens) {
+        Some(t) => (t, Vec::new()),
+        None => (NOVEL, vec!["novel".to_string()]),
+    };
+    let values = fill_values(model, &tokens, template, rng);
+    Step { template, tokens, values, surprise: surprise + bits, marks, skew: Skew::default(), verbatim: None }
+}
+
 /// A plausible walk.
 pub fn plausible<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut R) -> Walk {
     let mut walk = Walk::default();
@@ -134,24 +193,33 @@ pub fn plausible<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &
     let mut scratch = Vec::new();
     while walk.steps.len() < options.max_messages {
         let s = sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch);
-        let mut surprise = -model.session.prob(&history, s).log2();
+        let surprise = -model.session.prob(&history, s).log2();
         if s == END {
             walk.ended = true;
             return walk;
         }
-        let (tokens, template, marks) = if s == NOVEL {
-            let (tokens, bits) = novel_tokens(model, options, rng, &mut scratch);
-            surprise += bits;
-            match model.template_symbol(&tokens) {
-                Some(t) => (tokens, t, Vec::new()),
-                None => (tokens, NOVEL, vec!["novel".to_string()]),
-            }
-        } else {
-            (model.template(s).unwrap_or_default().to_vec(), s, Vec::new())
-        };
-        let values = fill_values(model, &tokens, template, rng);
+        walk.steps.push(make_step(model, options, s, surprise, rng, &mut scratch));
         history.push(s);
-        walk.steps.push(Step { template, tokens, values, surprise, marks, skew: Skew::default() });
     }
     walk
+}
+
+/// A walk through the given session symbols (the end implied), with slots filled from the
+/// pools; each step's surprise is the chain's for that step.
+pub fn of_symbols<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &GenOptions,
+    symbols: &[u32],
+    rng: &mut R,
+) -> Walk {
+    let mut scratch = Vec::new();
+    let steps = symbols
+        .iter()
+        .enumerate()
+        .map(|(i, &s)| {
+            let surprise = -model.session.prob(&symbols[..i], s).log2();
+            make_step(model, options, s, surprise, rng, &mut scratch)
+        })
+        .collect();
+    Walk { steps, ended: true }
 }
