@@ -279,6 +279,11 @@ pub fn read(sources: Vec<Source>, options: &ReadOptions, what: &str) -> Result<C
             skips.add("empty files", 1);
             continue;
         }
+        if format != Format::Http && looks_binary(&source.bytes) {
+            // Common practice (as text tools do): a NUL byte near the start marks a binary file.
+            skips.add("binary files", 1);
+            continue;
+        }
         frame_source(&plan, index, source, &mut sessions, &mut skips);
     }
     sessions.retain(|s: &Session| s.frames.iter().any(|f| f.role == Role::Request));
@@ -380,6 +385,11 @@ fn group_sessions(
             open.insert(key, (sessions.len() - 1, now));
         }
     }
+}
+
+/// True when the first 64 KiB hold a NUL byte.
+fn looks_binary(bytes: &[u8]) -> bool {
+    memchr::memchr(0, &bytes[..bytes.len().min(64 << 10)]).is_some()
 }
 
 /// A line without its LF or CRLF terminator.
