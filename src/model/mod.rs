@@ -51,7 +51,7 @@ pub struct Settings {
     pub read: ReadOptions,
     pub smoothing: Smoothing,
     /// Fixed Kneser–Ney discount; estimated per level when absent.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub discount: Option<f64>,
     /// Most distinct values kept per slot pool.
     pub pool_cap: u32,

@@ -81,17 +81,17 @@ pub struct Frame {
 #[serde(deny_unknown_fields)]
 pub struct ReadOptions {
     /// `None` = sniff from the first source.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub format: Option<Format>,
     /// Regex whose first capture group names the session a line belongs to (lines, jsonl).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub session_key: Option<String>,
     /// Start a new session when consecutive lines of a session are further apart than this
     /// (milliseconds); needs timestamps in the lines.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub idle_gap_ms: Option<u64>,
     /// Regex marking reply lines (lines, jsonl). HTTP replies are recognised by their status line.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub reply_pattern: Option<String>,
 }
 
@@ -251,7 +251,11 @@ struct Plan {
 }
 
 fn compile_regex(what: &str, pattern: &str) -> Result<regex::bytes::Regex, ReadError> {
-    regex::bytes::Regex::new(pattern).map_err(|e| bad(Path::new(what), format!("bad regex `{pattern}`: {e}")))
+    regex::bytes::Regex::new(pattern).map_err(|e| {
+        let text = e.to_string();
+        let reason = text.lines().rev().find_map(|l| l.trim().strip_prefix("error: ")).unwrap_or(&text);
+        bad(Path::new(what), format!("bad regex `{pattern}`: {reason}"))
+    })
 }
 
 /// Reads `sources` into a corpus. `what` names the input in errors (e.g. the paths given).
