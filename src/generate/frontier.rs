@@ -11,7 +11,7 @@
 //! 3. otherwise the least visited;
 //!
 //! and among equals, at random with the chain's probabilities (tempered). Outside learned
-//! contexts (after a novel message) the step is drawn as in plausible mode. A walk therefore
+//! contexts the step is drawn as in plausible mode. A walk therefore
 //! heads for uncovered parts of the model and ends when taking an end transition is the best
 //! choice, or at the message limit. Output depends on the sequence of walks asked for, which
 //! is deterministic for a seed.
@@ -21,7 +21,7 @@ use std::collections::VecDeque;
 use rand::{Rng, RngExt};
 
 use super::transitions::Transitions;
-use super::walk::{make_step, sample_tempered};
+use super::walk::{make_step, sample_plausible};
 use super::{GenOptions, Walk};
 use crate::model::Compiled;
 use crate::symbol::END;
@@ -133,18 +133,18 @@ impl Frontier {
                             self.graph.symbol(e)
                         }
                         None => {
-                            sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch)
+                            sample_plausible(&model.session, &history, options.temperature, rng, &mut scratch)
                         }
                     }
                 }
-                None => sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch),
+                None => sample_plausible(&model.session, &history, options.temperature, rng, &mut scratch),
             };
             let surprise = -model.session.prob(&history, s).log2();
             if s == END {
                 walk.ended = true;
                 break;
             }
-            walk.steps.push(make_step(model, options, s, surprise, rng, &mut scratch));
+            walk.steps.push(make_step(model, options, &history, s, surprise, rng, &mut scratch));
             history.push(s);
         }
         walk

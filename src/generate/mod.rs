@@ -21,7 +21,7 @@ pub mod rare;
 pub mod report;
 pub mod tour;
 pub mod transitions;
-mod walk;
+pub mod walk;
 pub mod waypoint;
 
 use std::sync::Arc;

@@ -3,11 +3,14 @@
 //!
 //! The session chain picks the next template as in plausible mode. That template is then
 //! varied: its first `k` tokens are kept (`k` uniform over 0..=length) and the message chain
-//! continues from there until it ends the message. A result that is a known template, empty or
+//! continues from there, on learned transitions as plausible traffic does, until it ends the
+//! message. A result that is a known template, empty or
 //! cut at the token limit is rejected and another cut tried, up to [`NOVEL_TRIES`] times; if
 //! every try fails the template is sent as learned (and counts as not new in the report).
 //! Every token after the cut is a draw from the message chain in its context, so a new
-//! message is a recombination the chain itself proposes, placed where its origin would be.
+//! message is a recombination the chain itself proposes, placed where its origin would be. A
+//! token chain of fixed order does not track nesting, so some new JSON messages do not parse;
+//! the report measures how many.
 //!
 //! The session history records the varied template's symbol, not the novel-message symbol, so
 //! the rest of the session stays on course. The surprise of a new message is computed as
@@ -15,11 +18,11 @@
 
 use rand::{Rng, RngExt};
 
-use super::walk::{fill_values, make_step, sample_tempered};
+use super::walk::{fill_values, make_step, sample_plausible};
 use super::{GenOptions, Step, Walk};
 use crate::chain::Chain;
 use crate::model::Compiled;
-use crate::symbol::{END, NOVEL};
+use crate::symbol::{BEGIN, END, NOVEL};
 use crate::token::render::Skew;
 
 /// Cuts tried per message before falling back to the learned template.
@@ -30,7 +33,7 @@ pub fn message_bits(chain: &Chain, tokens: &[u32]) -> f64 {
     (0..=tokens.len()).map(|i| -chain.prob(&tokens[..i], tokens.get(i).copied().unwrap_or(END)).log2()).sum()
 }
 
-/// A variation of `base` that is not a known template, if one is found.
+/// A variation of `base` that is not a template seen in training, if one is found.
 pub fn vary<R: Rng + ?Sized>(
     model: &Compiled,
     options: &GenOptions,
@@ -43,14 +46,14 @@ pub fn vary<R: Rng + ?Sized>(
         let mut tokens = base[..keep].to_vec();
         let mut ended = false;
         while tokens.len() < options.max_tokens {
-            let s = sample_tempered(&model.message, &tokens, options.temperature, rng, scratch);
+            let s = sample_plausible(&model.message, &tokens, options.temperature, rng, scratch);
             if s == END {
                 ended = true;
                 break;
             }
             tokens.push(s);
         }
-        if ended && !tokens.is_empty() && model.template_symbol(&tokens).is_none() {
+        if ended && !tokens.is_empty() && model.learned_template(&tokens).is_none() {
             return Some(tokens);
         }
     }
@@ -63,12 +66,17 @@ pub fn novel<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
     let mut history: Vec<u32> = Vec::new();
     let mut scratch = Vec::new();
     while walk.steps.len() < options.max_messages {
-        let s = sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch);
+        let s = sample_plausible(&model.session, &history, options.temperature, rng, &mut scratch);
         if s == END {
             walk.ended = true;
             break;
         }
-        let base = model.template(s).unwrap_or_default();
+        // The novel-message symbol stands for rare templates: vary one that followed this step.
+        let base = match s {
+            NOVEL => model.sample_rare_template(history.last().copied().unwrap_or(BEGIN), rng),
+            _ => Some(s),
+        };
+        let base = base.and_then(|t| model.template(t)).unwrap_or_default();
         let step = match vary(model, options, base, rng, &mut scratch) {
             Some(tokens) => {
                 let surprise =
@@ -84,7 +92,15 @@ pub fn novel<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
                     verbatim: None,
                 }
             }
-            None => make_step(model, options, s, -model.session.prob(&history, s).log2(), rng, &mut scratch),
+            None => make_step(
+                model,
+                options,
+                &history,
+                s,
+                -model.session.prob(&history, s).log2(),
+                rng,
+                &mut scratch,
+            ),
         };
         walk.steps.push(step);
         history.push(s);

@@ -1,7 +1,7 @@
 //! Rare mode: forced steps into the tail of the session chain, and hostile slot values.
 //!
 //! Before each session step (including the one that might end the session) a coin with the
-//! rare rate decides whether the step is forced. A forced step draws from the *tail*: every
+//! rare rate decides whether the step is forced; unforced steps are plausible ones. A forced step draws from the *tail*: every
 //! symbol the chain gives an explicit term after this history (successors seen in training
 //! after the full context, plus the unseen ones offered by the shorter backoff contexts), the
 //! session end excluded, each weighted by 1/p. So the least expected of the messages the model
@@ -19,7 +19,7 @@
 use rand::{Rng, RngExt};
 
 use super::hostile::HostileLibrary;
-use super::walk::{make_step, sample_tempered};
+use super::walk::{make_step, sample_plausible};
 use super::{GenOptions, Step, Walk};
 use crate::chain::Chain;
 use crate::model::Compiled;
@@ -76,7 +76,7 @@ fn rare_once<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
         let (s, p) = match tail {
             Some(pick) => pick,
             None => {
-                let s = sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch);
+                let s = sample_plausible(&model.session, &history, options.temperature, rng, &mut scratch);
                 (s, model.session.prob(&history, s))
             }
         };
@@ -84,7 +84,7 @@ fn rare_once<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
             walk.ended = true;
             break;
         }
-        let mut step = make_step(model, options, s, -p.log2(), rng, &mut scratch);
+        let mut step = make_step(model, options, &history, s, -p.log2(), rng, &mut scratch);
         if tail.is_some() {
             step.marks.push("rare".into());
         }

@@ -11,9 +11,11 @@
 //!   parser for an arbitrary line protocol, so the check is the model's own framing only: the
 //!   message is one line (no LF except a final one). It catches CR/LF injection, not much else.
 //! - **new templates**: the message's tokens are unknown to the model or form a template it
-//!   never saw (the `[new template]` of `tracewalk score`).
+//!   never saw in training (templates seen only rarely, which the session chain folds into its
+//!   novel-message symbol, are not new).
 //! - **transitions**: learned session transitions (see [`super::transitions`]) the traces take,
-//!   out of all learned ones; a trace cut at the message limit takes no end transition.
+//!   out of all learned ones; a trace cut at the message limit takes no end transition. A
+//!   message maps to its template's session symbol, or to the novel-message symbol.
 //! - **surprise**: per message, as `tracewalk score` computes it.
 //! - forced rare steps and hostile values, counted from the trace marks.
 
@@ -167,13 +169,14 @@ impl<'m> ReportBuilder<'m> {
         for m in &trace.messages {
             r.messages += 1;
             r.well_formed += usize::from(well_formed(format, &m.bytes));
-            let (bits, known) = self.scorer.next(&m.bytes);
-            r.new_templates += usize::from(!known);
+            let (bits, _) = self.scorer.next(&m.bytes);
             r.surprise_sum += bits;
             r.surprise_max = r.surprise_max.max(bits);
             let symbols: Option<Vec<u32>> =
                 self.model.symbols_of(&m.bytes, &mut self.scratch).into_iter().collect();
-            templates.push(symbols.and_then(|s| self.model.template_symbol(&s)).unwrap_or(NOVEL));
+            let symbols = symbols.as_deref();
+            r.new_templates += usize::from(symbols.and_then(|s| self.model.learned_template(s)).is_none());
+            templates.push(symbols.and_then(|s| self.model.template_symbol(s)).unwrap_or(NOVEL));
             rare += m.marks.iter().filter(|k| *k == "rare").count();
             r.hostile_values += m.marks.iter().filter(|k| k.starts_with("hostile:")).count();
         }

@@ -5,7 +5,7 @@ use rand::{Rng, RngExt};
 use super::GenOptions;
 use crate::chain::Chain;
 use crate::model::Compiled;
-use crate::symbol::{END, NOVEL};
+use crate::symbol::{BEGIN, END, NOVEL};
 use crate::token::render::Skew;
 
 /// One generated message before rendering.
@@ -83,7 +83,33 @@ impl Walk {
     }
 }
 
-/// Draws the next symbol with temperature `t` (exactly p^(1/t) renormalised).
+/// Draws the next step of plausible traffic: from the maximum-likelihood distribution of the
+/// longest context seen in training (see [`Chain::sample_seen`]), weights raised to 1/t.
+pub fn sample_plausible<R: Rng + ?Sized>(
+    chain: &Chain,
+    history: &[u32],
+    t: f64,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> u32 {
+    if t == 1.0 {
+        return chain.sample_seen(history, rng);
+    }
+    chain.seen_distribution(history, scratch);
+    let inv = 1.0 / t;
+    let total: f64 = scratch.iter().map(|e| e.1.powf(inv)).sum();
+    let mut target = rng.random::<f64>() * total;
+    for &(s, p) in scratch.iter() {
+        target -= p.powf(inv);
+        if target < 0.0 {
+            return s;
+        }
+    }
+    scratch.last().map_or(END, |e| e.0)
+}
+
+/// Draws the next symbol from the smoothed chain with temperature `t` (exactly p^(1/t)
+/// renormalised, unseen steps included).
 pub fn sample_tempered<R: Rng + ?Sized>(
     chain: &Chain,
     history: &[u32],
@@ -134,7 +160,7 @@ pub fn novel_tokens<R: Rng + ?Sized>(
     let mut tokens = Vec::new();
     let mut bits = 0.0;
     while tokens.len() < options.max_tokens {
-        let s = sample_tempered(&model.message, &tokens, options.temperature, rng, scratch);
+        let s = sample_plausible(&model.message, &tokens, options.temperature, rng, scratch);
         bits -= model.message.prob(&tokens, s).log2();
         if s == END {
             break;
@@ -142,6 +168,25 @@ pub fn novel_tokens<R: Rng + ?Sized>(
         tokens.push(s);
     }
     (tokens, bits)
+}
+
+/// A message for the session chain's novel-message step: the message chain is sampled until its
+/// tokens do not form a frequent template (those have their own symbol, so the step means "a
+/// message of a rare or unseen shape"); after 64 tries the last sample is kept.
+pub fn novel_message<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &GenOptions,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> (Vec<u32>, f64) {
+    let mut attempt = novel_tokens(model, options, rng, scratch);
+    for _ in 0..63 {
+        if model.template_symbol(&attempt.0).is_none() {
+            break;
+        }
+        attempt = novel_tokens(model, options, rng, scratch);
+    }
+    attempt
 }
 
 /// Fills the slots of `tokens` from the pools.
@@ -162,12 +207,15 @@ pub fn fill_values<R: Rng + ?Sized>(
         .collect()
 }
 
-/// The step for session symbol `s` (a template, or [`NOVEL`]: a new message from the message
-/// chain), with slots filled from the pools. `surprise` is that of the session step; a novel
-/// message adds the bits of its tokens.
+/// The step for session symbol `s` after `history`, with slots filled from the pools. A
+/// template symbol gives that template. The novel-message symbol stands for the rare templates
+/// folded into it: one that followed the same step in training is drawn; only a model without
+/// rare templates builds a new message with the message chain (marked `novel` when its template
+/// was never seen; its token bits are added to the surprise).
 pub fn make_step<R: Rng + ?Sized>(
     model: &Compiled,
     options: &GenOptions,
+    history: &[u32],
     s: u32,
     surprise: f64,
     rng: &mut R,
@@ -177,13 +225,29 @@ pub fn make_step<R: Rng + ?Sized>(
         let values = fill_values(model, model.template(s).unwrap_or_default(), s, rng);
         return Step::of_template(model, s, values, surprise);
     }
-    let (tokens, bits) = novel_tokens(model, options, rng, scratch);
-    let (template, marks) = match model.template_symbol(&tokens) {
-        Some(t) => (t, Vec::new()),
-        None => (NOVEL, vec!["novel".to_string()]),
+    let prev = history.last().copied().unwrap_or(BEGIN);
+    let (tokens, bits, marks) = match model.sample_rare_template(prev, rng) {
+        Some(t) => (model.template(t).unwrap_or_default().to_vec(), 0.0, Vec::new()),
+        None => {
+            let (tokens, bits) = novel_message(model, options, rng, scratch);
+            let marks = if model.learned_template(&tokens).is_none() {
+                vec!["novel".to_string()]
+            } else {
+                Vec::new()
+            };
+            (tokens, bits, marks)
+        }
     };
-    let values = fill_values(model, &tokens, template, rng);
-    Step { template, tokens, values, surprise: surprise + bits, marks, skew: Skew::default(), verbatim: None }
+    let values = fill_values(model, &tokens, NOVEL, rng);
+    Step {
+        template: NOVEL,
+        tokens,
+        values,
+        surprise: surprise + bits,
+        marks,
+        skew: Skew::default(),
+        verbatim: None,
+    }
 }
 
 /// A plausible walk.
@@ -192,13 +256,13 @@ pub fn plausible<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &
     let mut history: Vec<u32> = Vec::new();
     let mut scratch = Vec::new();
     while walk.steps.len() < options.max_messages {
-        let s = sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch);
+        let s = sample_plausible(&model.session, &history, options.temperature, rng, &mut scratch);
         let surprise = -model.session.prob(&history, s).log2();
         if s == END {
             walk.ended = true;
             return walk;
         }
-        walk.steps.push(make_step(model, options, s, surprise, rng, &mut scratch));
+        walk.steps.push(make_step(model, options, &history, s, surprise, rng, &mut scratch));
         history.push(s);
     }
     walk
@@ -218,7 +282,7 @@ pub fn of_symbols<R: Rng + ?Sized>(
         .enumerate()
         .map(|(i, &s)| {
             let surprise = -model.session.prob(&symbols[..i], s).log2();
-            make_step(model, options, s, surprise, rng, &mut scratch)
+            make_step(model, options, &symbols[..i], s, surprise, rng, &mut scratch)
         })
         .collect();
     Walk { steps, ended: true }

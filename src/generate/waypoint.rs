@@ -495,22 +495,32 @@ pub fn template_text(model: &Compiled, symbol: u32) -> String {
 /// The templates a `--through` argument names: a template's exact text (as `tracewalk show`
 /// prints it), else a message (escaped like trace lines) whose template the model knows, else
 /// every template whose text contains the argument.
+///
+/// Only templates that are symbols of the session chain count: those seen too rarely are folded
+/// into its novel-message symbol and cannot be steered to one by one.
 pub fn resolve(model: &Compiled, text: &str) -> Result<Vec<u32>, GenError> {
     let first = crate::symbol::FIRST_TEMPLATE;
-    let all = first..first + model.templates.len() as u32;
-    if let Some(t) = all.clone().find(|&t| template_text(model, t) == text) {
+    let in_chain = |t: &u32| model.template(*t).and_then(|tokens| model.template_symbol(tokens)) == Some(*t);
+    let all: Vec<u32> = (first..first + model.templates.len() as u32).filter(in_chain).collect();
+    if let Some(&t) = all.iter().find(|&&t| template_text(model, t) == text) {
         return Ok(vec![t]);
     }
+    let mut folded = false;
     if let Ok(bytes) = crate::escape::unescape(text) {
         let mut scratch = crate::token::Tokenized::default();
         let known: Option<Vec<u32>> = model.symbols_of(&bytes, &mut scratch).into_iter().collect();
-        if let Some(t) = known.and_then(|k| model.template_symbol(&k)) {
-            return Ok(vec![t]);
+        if let Some(k) = known {
+            if let Some(t) = model.template_symbol(&k) {
+                return Ok(vec![t]);
+            }
+            folded = model.learned_template(&k).is_some();
         }
     }
-    let matching: Vec<u32> = all.filter(|&t| template_text(model, t).contains(text)).collect();
+    let matching: Vec<u32> = all.into_iter().filter(|&t| template_text(model, t).contains(text)).collect();
     if matching.is_empty() {
-        return Err(GenError::Options(format!("--through `{text}` matches no learned template")));
+        let why =
+            if folded { " (its template was seen too rarely to be a session-chain symbol)" } else { "" };
+        return Err(GenError::Options(format!("--through `{text}` matches no learned template{why}")));
     }
     Ok(matching)
 }
