@@ -405,16 +405,19 @@ impl<'m> Mutator<'m> {
         let (i, slot) = targets[rng.random_range(0..targets.len())];
         let model = self.model;
         let step = &mut walk.steps[i];
+        // A few draws, so that a value equal to the current one (a zero in a zero) is no edit.
         match slot {
             Some(k) => {
                 let symbol = model.slots_of(&step.tokens).get(k)?.symbol;
                 let Some(Token::Slot(class)) = model.vocab.token(symbol) else { return None };
-                let v = lib.pick(class, rng)?;
+                let v = (0..8).filter_map(|_| lib.pick(class, rng)).find(|v| v.bytes != step.values[k])?;
                 step.values[k] = v.bytes.clone();
                 step.marks.push(format!("hostile:{}:{}", k + 1, v.name));
             }
             None => {
-                let skew = lib.pick_skew(rng)?;
+                let skew = (0..8)
+                    .filter_map(|_| lib.pick_skew(rng))
+                    .find(|s| s.delta != step.skew.content_length)?;
                 step.skew.content_length = skew.delta;
                 step.marks.push(format!("hostile:length:{}", skew.name));
             }

@@ -44,6 +44,9 @@ pub struct Tour {
     /// The fewest steps (messages plus one end per session) that sessions without a length
     /// limit need to take every transition; `None` if the transitions cannot all be taken.
     pub optimal_steps: Option<u64>,
+    /// Sessions added greedily because optimal ones were over the message limit (0: the plan
+    /// has exactly `optimal_steps` steps).
+    pub greedy_sessions: usize,
 }
 
 impl Tour {
@@ -78,7 +81,7 @@ fn distance_to_end(t: &Transitions) -> Vec<u32> {
 /// Plans a tour with sessions of at most `max_messages` messages.
 pub fn plan(t: &Transitions, max_messages: usize) -> Tour {
     let Some(start) = t.start() else {
-        return Tour { sessions: Vec::new(), uncovered: t.len(), optimal_steps: None };
+        return Tour { sessions: Vec::new(), uncovered: t.len(), optimal_steps: None, greedy_sessions: 0 };
     };
     let mut taken = vec![false; t.len()];
     let mut sessions = Vec::new();
@@ -95,8 +98,9 @@ pub fn plan(t: &Transitions, max_messages: usize) -> Tour {
         }
     }
     let (more, uncovered) = greedy(t, start, max_messages, &mut taken);
+    let greedy_sessions = more.len();
     sessions.extend(more);
-    Tour { sessions, uncovered, optimal_steps }
+    Tour { sessions, uncovered, optimal_steps, greedy_sessions }
 }
 
 /// How often each transition is taken in a cheapest covering set of sessions (each at least
@@ -449,6 +453,63 @@ mod tests {
         // With a limit of 2 messages the flow's 3-message session is dropped, greedy is used.
         let tour = plan(&t, 2);
         assert_eq!(tour.uncovered, 1, "4→4 needs a session of 3 messages");
+    }
+
+    /// Every start→end path of an acyclic transition graph, as edge lists.
+    fn all_paths(t: &Transitions) -> Vec<Vec<usize>> {
+        let mut out = Vec::new();
+        let mut stack = vec![(t.start().unwrap(), Vec::new())];
+        while let Some((state, path)) = stack.pop() {
+            for e in t.edges(state) {
+                let mut longer = path.clone();
+                longer.push(e);
+                match t.target(e) {
+                    Some(next) => stack.push((next, longer)),
+                    None => out.push(longer),
+                }
+            }
+        }
+        out
+    }
+
+    #[test]
+    fn the_flow_optimum_equals_brute_force_on_small_acyclic_models() {
+        use rand::{RngExt, SeedableRng};
+        let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(5);
+        let mut checked = 0;
+        for case in 0..200 {
+            // Strictly increasing symbols make the graph acyclic, so all sessions can be listed.
+            let seqs: Vec<Vec<u32>> = (0..rng.random_range(2..6))
+                .map(|_| {
+                    let mut s: Vec<u32> =
+                        (0..rng.random_range(1..5)).map(|_| rng.random_range(3..12)).collect();
+                    s.sort_unstable();
+                    s.dedup();
+                    s
+                })
+                .collect();
+            let refs: Vec<&[u32]> = seqs.iter().map(|s| s.as_slice()).collect();
+            let t = graph(&refs, 1 + case % 2);
+            let paths = all_paths(&t);
+            if paths.len() > 16 || t.len() > 64 {
+                continue;
+            }
+            let masks: Vec<u64> = paths.iter().map(|p| p.iter().fold(0, |m, &e| m | 1 << e)).collect();
+            let all = if t.len() == 64 { u64::MAX } else { (1u64 << t.len()) - 1 };
+            let brute = (1u32..1 << paths.len())
+                .filter(|set| {
+                    (0..paths.len()).filter(|i| set & 1 << i != 0).fold(0, |m, i| m | masks[i]) == all
+                })
+                .map(|set| {
+                    (0..paths.len()).filter(|i| set & 1 << i != 0).map(|i| paths[i].len() as u64).sum()
+                })
+                .min();
+            let tour = plan(&t, 50);
+            assert_eq!(tour.optimal_steps, brute, "case {case}: {seqs:?}");
+            assert_eq!(Some(tour.steps()), brute, "case {case}");
+            checked += 1;
+        }
+        assert!(checked > 100, "only {checked} cases were small enough");
     }
 
     #[test]
