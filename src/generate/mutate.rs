@@ -395,7 +395,7 @@ impl<'m> Mutator<'m> {
                 continue;
             }
             targets.extend((0..step.values.len()).map(|k| (i, Some(k))));
-            if writes_content_length(self.model, step) && lib.length_skews().len() > 0 {
+            if writes_content_length(self.model, step) && !lib.length_skews().is_empty() {
                 targets.push((i, None));
             }
         }

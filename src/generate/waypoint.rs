@@ -281,7 +281,7 @@ impl Plan {
         } else {
             plan.backward();
         }
-        if !(plan.probability() > 0.0) {
+        if plan.probability().is_nan() || plan.probability() <= 0.0 {
             return Err(GenError::Options("no session within the length bound visits the waypoints".into()));
         }
         Ok(plan)
@@ -392,9 +392,9 @@ impl Plan {
                     out[c as usize] = best;
                 }
                 let i = self.at(r, j, 0);
-                for c in 0..n {
-                    self.table[i + c] = out[c].0;
-                    self.choice[i + c] = out[c].1;
+                for (c, &(value, symbol)) in out.iter().enumerate() {
+                    self.table[i + c] = value;
+                    self.choice[i + c] = symbol;
                 }
             }
         }
