@@ -123,7 +123,12 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
     if let Some(plan) = generator.waypoints() {
         let what =
             if a.best { "probability of this session" } else { "probability that a session visits them" };
-        eprintln!("waypoints: {what} within {} messages: {:.3e}", a.max_messages, plan.probability());
+        eprintln!(
+            "waypoints: {what} within {} messages: {:.3e} ({} chain contexts)",
+            a.max_messages,
+            plan.probability(),
+            plan.space().len()
+        );
     }
     if let Some(tour) = generator.tour() {
         let optimum =

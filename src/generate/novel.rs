@@ -2,11 +2,12 @@
 //! finds plausible.
 //!
 //! The session chain picks the next template as in plausible mode. That template is then
-//! varied: its first `k` tokens are kept (`k` uniform over 0..=length) and the message chain
-//! continues from there, on learned transitions as plausible traffic does, until it ends the
-//! message. A result that is a known template, empty or
-//! cut at the token limit is rejected and another cut tried, up to [`NOVEL_TRIES`] times; if
-//! every try fails the template is sent as learned (and counts as not new in the report).
+//! varied: its first `k` tokens are kept (`k` uniform over 1..=length, so the first token,
+//! typically the command or the method, stays) and the message chain continues from there, on
+//! learned transitions as plausible traffic does, until it ends the message. A result that is
+//! a template seen in training, or is cut at the token limit, is rejected and another cut
+//! tried, up to [`NOVEL_TRIES`] times; if every try fails the template is sent as learned (and
+//! counts as not new in the report: short templates such as `PING` have no variations).
 //! Every token after the cut is a draw from the message chain in its context, so a new
 //! message is a recombination the chain itself proposes, placed where its origin would be. A
 //! token chain of fixed order does not track nesting, so some new JSON messages do not parse;
@@ -42,7 +43,7 @@ pub fn vary<R: Rng + ?Sized>(
     scratch: &mut Vec<(u32, f64)>,
 ) -> Option<Vec<u32>> {
     for _ in 0..NOVEL_TRIES {
-        let keep = rng.random_range(0..=base.len());
+        let keep = rng.random_range(base.len().min(1)..=base.len());
         let mut tokens = base[..keep].to_vec();
         let mut ended = false;
         while tokens.len() < options.max_tokens {
