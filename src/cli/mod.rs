@@ -3,6 +3,7 @@
 mod gen_cmd;
 mod learn;
 mod score;
+mod seed;
 mod show;
 
 use std::path::PathBuf;
@@ -27,6 +28,9 @@ enum Command {
     Gen(gen_cmd::Args),
     /// Print each message's surprise under a model and flag the unusual ones.
     Score(score::Args),
+    /// Write generated traces as a seed corpus for a coverage-guided engine (raw bytes, one
+    /// file per trace, named by content hash).
+    Seed(seed::Args),
     /// Add models learned on separate shards of data.
     Merge(MergeArgs),
     /// Print the built-in slot rules (a starting point for a rules file of your own).
@@ -60,6 +64,7 @@ pub fn run() -> i32 {
         Command::Show(a) => show::run(a),
         Command::Gen(a) => gen_cmd::run(a),
         Command::Score(a) => score::run(a),
+        Command::Seed(a) => seed::run(a),
         Command::Merge(a) => merge(a),
         Command::Rules => {
             print!("{}", tracewalk::token::rules::BUILTIN_RULES_YAML);
