@@ -44,7 +44,7 @@ fn decoded_choices_cover_the_learned_first_steps() {
             first.insert(s.render(&model).split(|&b| b == b' ').next().unwrap().to_vec());
         }
     }
-    assert!(first.contains(&b"HELLO".to_vec()), "{first:?}");
+    assert!(first.contains(b"HELLO".as_slice()), "{first:?}");
 }
 
 #[test]
