@@ -4,6 +4,7 @@ mod gen_cmd;
 mod learn;
 mod mutate;
 mod score;
+mod seed;
 mod show;
 
 use std::path::PathBuf;
@@ -30,6 +31,9 @@ enum Command {
     Mutate(mutate::Args),
     /// Print each message's surprise under a model and flag the unusual ones.
     Score(score::Args),
+    /// Write generated traces as a seed corpus for a coverage-guided engine (raw bytes, one
+    /// file per trace, named by content hash).
+    Seed(seed::Args),
     /// Add models learned on separate shards of data.
     Merge(MergeArgs),
     /// Print the built-in slot rules (a starting point for a rules file of your own).
@@ -71,6 +75,7 @@ pub fn run() -> i32 {
         Command::Gen(a) => gen_cmd::run(a),
         Command::Mutate(a) => mutate::run(a),
         Command::Score(a) => score::run(a),
+        Command::Seed(a) => seed::run(a),
         Command::Merge(a) => merge(a),
         Command::Rules(a) if a.hostile => {
             print!("{}", tracewalk::generate::hostile::BUILTIN_HOSTILE_YAML);
