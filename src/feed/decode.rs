@@ -134,7 +134,15 @@ pub fn decode(model: &Compiled, u: &mut Unstructured<'_>, options: &DecodeOption
             })
             .collect();
         history.push(s);
-        walk.steps.push(Step { template, tokens, values, surprise, marks, skew: Skew::default() });
+        walk.steps.push(Step {
+            template,
+            tokens,
+            values,
+            surprise,
+            marks,
+            skew: Skew::default(),
+            verbatim: None,
+        });
     }
     walk
 }
