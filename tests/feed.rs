@@ -82,3 +82,37 @@ fn seed_writes_raw_traces_named_by_content_hash() {
         assert!(bytes.starts_with(b"POST ") || bytes.starts_with(b"GET "), "{name}");
     }
 }
+
+#[test]
+fn input_mutator_keeps_requests_wellformed_and_falls_back_on_garbage() {
+    use tracewalk::feed::{InputMutator, Mutated, byte_mutate};
+    let model = common::learn_corpus("shop-api", 2);
+    let mutator = InputMutator::new(&model).unwrap();
+    let mut generator = tracewalk::generate::Generator::new(&model, Default::default()).unwrap();
+    let (mut modeled, mut changed) = (0, 0);
+    for i in 0..200u32 {
+        let original = generator.trace(9, i as u64).wire_bytes();
+        let max_size = original.len() * 2 + 1024;
+        let mut data = original.clone();
+        data.resize(max_size, 0);
+        let again = {
+            let mut d = data.clone();
+            mutator.mutate(&mut d, original.len(), max_size, i)
+        };
+        match mutator.mutate(&mut data, original.len(), max_size, i) {
+            Mutated::Modeled(n) => {
+                assert_eq!(Mutated::Modeled(n), again, "deterministic for a seed");
+                assert!(n <= max_size);
+                modeled += 1;
+                changed += usize::from(data[..n] != original[..]);
+            }
+            Mutated::Unreadable => {}
+        }
+    }
+    assert!(modeled >= 190, "{modeled} of 200 generated inputs mutated by the model");
+    assert!(changed >= 180, "{changed} of {modeled} mutants differ from their input");
+    let mut garbage = vec![0xffu8; 64];
+    assert_eq!(mutator.mutate(&mut garbage, 32, 64, 1), Mutated::Unreadable);
+    let n = byte_mutate(&mut garbage, 32, 64, 1);
+    assert!(n <= 64);
+}

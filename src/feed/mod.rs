@@ -6,15 +6,19 @@
 //!   each step of a walk, so every input decodes to a walk of the model and the engine's byte
 //!   mutations become changes of choices;
 //! - [`write_seeds`]: start the engine from generated traces, as raw wire bytes, one file each,
-//!   named by content hash.
+//!   named by content hash;
+//! - [`InputMutator`]: a custom mutator that reads an input back into messages and applies the
+//!   model-driven mutation operators, falling back to byte mutation for unreadable inputs.
 
 pub mod decode;
+pub mod mutator;
 
 use std::path::Path;
 
 use crate::generate::Generator;
 
 pub use decode::{DecodeOptions, decode};
+pub use mutator::{InputMutator, Mutated, byte_mutate};
 
 /// Writes `count` generated traces (raw wire bytes) into `dir`, one file per distinct trace,
 /// named by the BLAKE3 hash of its bytes. Returns the number of files written (duplicates
