@@ -358,6 +358,45 @@ impl Chain {
         self.uniform(rng)
     }
 
+    /// The deepest level whose context (the last symbols of `history`) was seen, with its node.
+    fn longest_seen(&self, window: &[u32]) -> Option<(usize, &Node)> {
+        (0..=self.order).rev().find_map(|k| self.node(window, k).map(|n| (k, n)))
+    }
+
+    /// Draws the next symbol from the maximum-likelihood distribution c(h,w)/c(h) of the
+    /// longest context `h` of `history` seen in training (staying on learned transitions; the
+    /// smoothing mass for unseen steps is not used). O(1): for Kneser–Ney the alias table over
+    /// c−D is mixed with a uniform draw over the successors, since c/N = (c−D)/N + D/N.
+    #[inline]
+    pub fn sample_seen<R: Rng + ?Sized>(&self, history: &[u32], rng: &mut R) -> u32 {
+        let mut buf = [0u32; 16];
+        let window = self.window(history, &mut buf);
+        let Some((k, node)) = self.longest_seen(window) else { return self.uniform(rng) };
+        let (s, n) = (node.start as usize, node.len as usize);
+        let d = self.levels[k].discount;
+        if d > 0.0 {
+            let coin = (rng.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64);
+            if coin * node.denom < d * n as f64 {
+                let i = (((rng.next_u64() >> 32) * n as u64) >> 32) as usize;
+                return self.succ[s + i];
+            }
+        }
+        let i = alias::draw(&self.prob[s..s + n], &self.alias[s..s + n], rng.next_u64());
+        self.succ[s + i]
+    }
+
+    /// The successors of the longest seen context of `history` with their maximum-likelihood
+    /// probabilities, into `out` (sorted by symbol).
+    pub fn seen_distribution(&self, history: &[u32], out: &mut Vec<(u32, f64)>) {
+        out.clear();
+        let mut buf = [0u32; 16];
+        let window = self.window(history, &mut buf);
+        let Some((_, node)) = self.longest_seen(window) else { return };
+        let (s, n) = (node.start as usize, node.len as usize);
+        let total: f64 = self.count[s..s + n].iter().map(|&c| c as f64).sum();
+        out.extend((s..s + n).map(|i| (self.succ[i], self.count[i] as f64 / total)));
+    }
+
     /// The same distribution as [`Chain::sample`], drawn by a cumulative linear scan over each
     /// context's successors: the baseline the alias method is measured against.
     pub fn sample_linear<R: Rng + ?Sized>(&self, history: &[u32], rng: &mut R) -> u32 {
@@ -475,6 +514,18 @@ impl Chain {
         mult / (self.symbols - 1) as f64
     }
 
+    /// Maximum-likelihood estimate c(h,w)/c(h) at the top order (counts as stored; for
+    /// Kneser–Ney lower levels are not involved). `None` when the context was never seen.
+    pub fn ml_prob(&self, history: &[u32], w: u32) -> Option<f64> {
+        let mut buf = [0u32; 16];
+        let window = self.window(history, &mut buf);
+        let node = self.node(window, self.order)?;
+        let (s, n) = (node.start as usize, node.len as usize);
+        let total: f64 = self.count[s..s + n].iter().map(|&c| c as f64).sum();
+        let c = self.succ[s..s + n].binary_search(&w).map_or(0.0, |i| self.count[s + i] as f64);
+        Some(c / total)
+    }
+
     /// Seen successors of exactly this context at the top level, with raw counts.
     pub fn successors(&self, context: &[u32]) -> Vec<(u32, u64)> {
         let Some(node) = self.levels[self.order].find(context) else { return Vec::new() };
@@ -549,5 +600,25 @@ mod tests {
             }
         }
         assert_eq!(a[0] + b[0], 0, "BEGIN is never drawn");
+    }
+
+    #[test]
+    fn seen_sampling_follows_longest_context_counts() {
+        use rand::SeedableRng;
+        for smoothing in [Smoothing::KneserNey, Smoothing::WittenBell] {
+            // After [2, 3]: 4 twice, 5 once, END once.
+            let c = chain(&[&[2, 3, 4], &[2, 3, 4], &[2, 3, 5], &[2, 3]], 2, smoothing, 7);
+            let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(9);
+            let mut seen = [0u32; 7];
+            for _ in 0..100_000 {
+                seen[c.sample_seen(&[2, 3], &mut rng) as usize] += 1;
+            }
+            for (w, p) in [(4, 0.5), (5, 0.25), (1, 0.25)] {
+                assert!((seen[w] as f64 / 100_000.0 - p).abs() < 0.01, "{smoothing:?} {w}: {}", seen[w]);
+            }
+            assert_eq!(seen[2] + seen[3] + seen[6], 0, "never an unseen step");
+            // Unseen context [6]: falls back to the longest seen suffix (the empty context).
+            assert_ne!(c.sample_seen(&[6], &mut rng), 0);
+        }
     }
 }

@@ -6,7 +6,7 @@
 //! (seed, trace index), so any trace of a batch can be reproduced alone and batches can be
 //! generated in parallel with identical output.
 
-mod walk;
+pub mod walk;
 
 use rand::SeedableRng;
 use rand_xoshiro::Xoshiro256PlusPlus;

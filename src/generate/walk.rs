@@ -5,7 +5,7 @@ use rand::{Rng, RngExt};
 use super::GenOptions;
 use crate::chain::Chain;
 use crate::model::Compiled;
-use crate::symbol::{END, NOVEL};
+use crate::symbol::{BEGIN, END, NOVEL};
 use crate::token::render::Skew;
 
 /// One generated message before rendering.
@@ -48,7 +48,33 @@ impl Walk {
     }
 }
 
-/// Draws the next symbol with temperature `t` (exactly p^(1/t) renormalised).
+/// Draws the next step of plausible traffic: from the maximum-likelihood distribution of the
+/// longest context seen in training (see [`Chain::sample_seen`]), weights raised to 1/t.
+pub fn sample_plausible<R: Rng + ?Sized>(
+    chain: &Chain,
+    history: &[u32],
+    t: f64,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> u32 {
+    if t == 1.0 {
+        return chain.sample_seen(history, rng);
+    }
+    chain.seen_distribution(history, scratch);
+    let inv = 1.0 / t;
+    let total: f64 = scratch.iter().map(|e| e.1.powf(inv)).sum();
+    let mut target = rng.random::<f64>() * total;
+    for &(s, p) in scratch.iter() {
+        target -= p.powf(inv);
+        if target < 0.0 {
+            return s;
+        }
+    }
+    scratch.last().map_or(END, |e| e.0)
+}
+
+/// Draws the next symbol from the smoothed chain with temperature `t` (exactly p^(1/t)
+/// renormalised, unseen steps included).
 pub fn sample_tempered<R: Rng + ?Sized>(
     chain: &Chain,
     history: &[u32],
@@ -99,7 +125,7 @@ pub fn novel_tokens<R: Rng + ?Sized>(
     let mut tokens = Vec::new();
     let mut bits = 0.0;
     while tokens.len() < options.max_tokens {
-        let s = sample_tempered(&model.message, &tokens, options.temperature, rng, scratch);
+        let s = sample_plausible(&model.message, &tokens, options.temperature, rng, scratch);
         bits -= model.message.prob(&tokens, s).log2();
         if s == END {
             break;
@@ -107,6 +133,25 @@ pub fn novel_tokens<R: Rng + ?Sized>(
         tokens.push(s);
     }
     (tokens, bits)
+}
+
+/// A message for the session chain's novel-message step: the message chain is sampled until its
+/// tokens do not form a frequent template (those have their own symbol, so the step means "a
+/// message of a rare or unseen shape"); after 64 tries the last sample is kept.
+pub fn novel_message<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &GenOptions,
+    rng: &mut R,
+    scratch: &mut Vec<(u32, f64)>,
+) -> (Vec<u32>, f64) {
+    let mut attempt = novel_tokens(model, options, rng, scratch);
+    for _ in 0..63 {
+        if model.template_symbol(&attempt.0).is_none() {
+            break;
+        }
+        attempt = novel_tokens(model, options, rng, scratch);
+    }
+    attempt
 }
 
 /// Fills the slots of `tokens` from the pools.
@@ -133,19 +178,30 @@ pub fn plausible<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &
     let mut history: Vec<u32> = Vec::new();
     let mut scratch = Vec::new();
     while walk.steps.len() < options.max_messages {
-        let s = sample_tempered(&model.session, &history, options.temperature, rng, &mut scratch);
+        let s = sample_plausible(&model.session, &history, options.temperature, rng, &mut scratch);
         let mut surprise = -model.session.prob(&history, s).log2();
         if s == END {
             walk.ended = true;
             return walk;
         }
-        let (tokens, template, marks) = if s == NOVEL {
-            let (tokens, bits) = novel_tokens(model, options, rng, &mut scratch);
+        let rare = if s == NOVEL {
+            model.sample_rare_template(history.last().copied().unwrap_or(BEGIN), rng)
+        } else {
+            None
+        };
+        let (tokens, template, marks) = if let Some(t) = rare {
+            // The novel-message symbol of plausible traffic stands for the rare templates seen
+            // in training: draw one that followed the same step.
+            (model.template(t).unwrap_or_default().to_vec(), NOVEL, Vec::new())
+        } else if s == NOVEL {
+            let (tokens, bits) = novel_message(model, options, rng, &mut scratch);
             surprise += bits;
-            match model.template_symbol(&tokens) {
-                Some(t) => (tokens, t, Vec::new()),
-                None => (tokens, NOVEL, vec!["novel".to_string()]),
-            }
+            let marks = if model.learned_template(&tokens).is_none() {
+                vec!["novel".to_string()]
+            } else {
+                Vec::new()
+            };
+            (tokens, NOVEL, marks)
         } else {
             (model.template(s).unwrap_or_default().to_vec(), s, Vec::new())
         };

@@ -81,17 +81,17 @@ pub struct Frame {
 #[serde(deny_unknown_fields)]
 pub struct ReadOptions {
     /// `None` = sniff from the first source.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub format: Option<Format>,
     /// Regex whose first capture group names the session a line belongs to (lines, jsonl).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub session_key: Option<String>,
     /// Start a new session when consecutive lines of a session are further apart than this
     /// (milliseconds); needs timestamps in the lines.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub idle_gap_ms: Option<u64>,
     /// Regex marking reply lines (lines, jsonl). HTTP replies are recognised by their status line.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub reply_pattern: Option<String>,
 }
 
@@ -251,7 +251,11 @@ struct Plan {
 }
 
 fn compile_regex(what: &str, pattern: &str) -> Result<regex::bytes::Regex, ReadError> {
-    regex::bytes::Regex::new(pattern).map_err(|e| bad(Path::new(what), format!("bad regex `{pattern}`: {e}")))
+    regex::bytes::Regex::new(pattern).map_err(|e| {
+        let text = e.to_string();
+        let reason = text.lines().rev().find_map(|l| l.trim().strip_prefix("error: ")).unwrap_or(&text);
+        bad(Path::new(what), format!("bad regex `{pattern}`: {reason}"))
+    })
 }
 
 /// Reads `sources` into a corpus. `what` names the input in errors (e.g. the paths given).
@@ -277,6 +281,11 @@ pub fn read(sources: Vec<Source>, options: &ReadOptions, what: &str) -> Result<C
     for (index, source) in sources.iter().enumerate() {
         if source.bytes.is_empty() {
             skips.add("empty files", 1);
+            continue;
+        }
+        if format != Format::Http && looks_binary(&source.bytes) {
+            // Common practice (as text tools do): a NUL byte near the start marks a binary file.
+            skips.add("binary files", 1);
             continue;
         }
         frame_source(&plan, index, source, &mut sessions, &mut skips);
@@ -380,6 +389,11 @@ fn group_sessions(
             open.insert(key, (sessions.len() - 1, now));
         }
     }
+}
+
+/// True when the first 64 KiB hold a NUL byte.
+fn looks_binary(bytes: &[u8]) -> bool {
+    memchr::memchr(0, &bytes[..bytes.len().min(64 << 10)]).is_some()
 }
 
 /// A line without its LF or CRLF terminator.
