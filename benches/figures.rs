@@ -2,7 +2,8 @@
 //! shows beside the learn figures). Each timing is the median of several runs; memory is
 //! counted exactly by a counting global allocator (stats_alloc).
 //!
-//! Run: `cargo bench --bench figures` (options after `--`: `--quick` for fewer repetitions).
+//! Run: `cargo bench --bench figures` (after `--`: `--quick` for 3 runs instead of 5, and
+//! `generation` or `load` for one part only).
 
 mod common;
 
@@ -26,18 +27,13 @@ fn timed<T>(f: impl FnOnce() -> T) -> (T, Duration) {
     (out, start.elapsed())
 }
 
-/// Peak resident set size of this process so far (Linux), in MiB.
-fn peak_rss_mib() -> Option<f64> {
-    let status = std::fs::read_to_string("/proc/self/status").ok()?;
-    let line = status.lines().find(|l| l.starts_with("VmHWM:"))?;
-    let kib: f64 = line.split_whitespace().nth(1)?.parse().ok()?;
-    Some(kib / 1024.0)
-}
-
-fn generation(runs: usize) {
+fn generation(runs: usize, large: &tracewalk::model::Model) {
     println!("generation (message-chain walk, one draw = one token, one core)");
-    for name in ["shop-api", "mail"] {
-        let c = common::compile(common::bundled_model(name));
+    for name in ["shop-api", "mail", "large"] {
+        let c = match name {
+            "large" => common::compile(large.clone()),
+            _ => common::compile(common::bundled_model(name)),
+        };
         let steps = 5_000_000u64;
         let mut rates = [Vec::new(), Vec::new()];
         for run in 0..runs {
@@ -60,34 +56,50 @@ fn generation(runs: usize) {
         let mut g = Generator::new(&c, GenOptions::default()).expect("options");
         let mut rates = Vec::new();
         for run in 0..runs {
-            let (bytes, t) = timed(|| {
-                (0..2000u64).map(|i| g.trace(run as u64, i).wire_bytes().len()).sum::<usize>()
-            });
+            let (bytes, t) =
+                timed(|| (0..2000u64).map(|i| g.trace(run as u64, i).wire_bytes().len()).sum::<usize>());
             rates.push(bytes as f64 / t.as_secs_f64());
         }
         println!("  {name:<9} Generator::trace end to end {:>6.1} MB/s", median(rates) / 1e6);
     }
 }
 
-fn load(runs: usize) {
+fn load(runs: usize, model: tracewalk::model::Model, learned_in: Duration) {
     let dir = tempfile::tempdir().expect("temp dir");
-    let (model, t) = timed(common::rich_model);
-    let (bin, yaml) = common::save_both(&model, dir.path(), "rich");
-    drop(model);
-    let size = |p: &std::path::Path| std::fs::metadata(p).map(|m| m.len() as f64 / (1 << 20) as f64).unwrap_or(0.0);
+    // `figures.sh` sets this to time a fresh `tracewalk` process loading the same files.
+    let keep = std::env::var_os("TRACEWALK_FIGURES_DIR").map(std::path::PathBuf::from);
+    let out = keep.as_deref().unwrap_or(dir.path());
+    let t = learned_in;
+    let (bin, yaml) = common::save_both(&model, out, "large");
+    let size = |p: &std::path::Path| std::fs::metadata(p).map_or(0.0, |m| m.len() as f64 / (1 << 20) as f64);
     println!(
         "model load (large model learned from invented text in {:.1} s; binary {:.1} MiB, YAML {:.1} MiB)",
         t.as_secs_f64(),
         size(&bin),
         size(&yaml)
     );
-    let before_rss = peak_rss_mib().unwrap_or(0.0);
+    // Live bytes of the two chains, counted by the allocator while they are built.
+    let config = tracewalk::chain::ChainConfig {
+        smoothing: model.settings.smoothing,
+        discount: model.settings.discount,
+        parts: tracewalk::chain::Parts::All,
+    };
     let region = Region::new(GLOBAL);
-    let (compiled, _) = timed(|| common::load_compiled(&bin));
+    let session =
+        tracewalk::chain::Chain::build(&model.session_chain_grams(), model.session_symbols(), &config);
+    let message = tracewalk::chain::Chain::build(&model.message_chain, model.token_symbols(), &config);
     let stats = region.change();
-    let live = stats.bytes_allocated as i64 - stats.bytes_deallocated as i64 + stats.bytes_reallocated as i64;
+    // Reallocations are already counted in both totals (their net change is just a summary).
+    let chains_live = stats.bytes_allocated as f64 - stats.bytes_deallocated as f64;
+    let chain_transitions = (session.transitions() + message.transitions()) as f64;
+    drop((session, message, model));
+
+    let region = Region::new(GLOBAL);
+    let compiled = common::load_compiled(&bin);
+    let stats = region.change();
+    let live = stats.bytes_allocated as f64 - stats.bytes_deallocated as f64;
     let transitions = common::transitions(&compiled);
-    let chains = compiled.session.heap_bytes() + compiled.message.heap_bytes();
+    assert_eq!(transitions as f64, chain_transitions, "the same model");
     println!(
         "  transitions {transitions} (session {} + message {}), contexts {}",
         compiled.session.transitions(),
@@ -95,12 +107,11 @@ fn load(runs: usize) {
         compiled.session.contexts() + compiled.message.contexts()
     );
     println!(
-        "  memory: chains {:.1} bytes/transition, whole compiled model {:.1} bytes/transition ({:.1} MiB live); peak RSS {:.0} MiB (before load {:.0} MiB)",
-        chains as f64 / transitions as f64,
-        live as f64 / transitions as f64,
-        live as f64 / (1 << 20) as f64,
-        peak_rss_mib().unwrap_or(0.0),
-        before_rss
+        "  memory: chains {:.1} bytes/transition ({:.1} MiB); whole compiled model with templates, vocabulary, pools and regexes {:.1} bytes/transition ({:.1} MiB)",
+        chains_live / chain_transitions,
+        chains_live / (1 << 20) as f64,
+        live / transitions as f64,
+        live / (1 << 20) as f64,
     );
     drop(compiled);
     for (what, path) in [("binary", &bin), ("YAML", &yaml)] {
@@ -117,6 +128,13 @@ fn load(runs: usize) {
 fn main() {
     let quick = std::env::args().any(|a| a == "--quick");
     let runs = if quick { 3 } else { 5 };
-    generation(runs);
-    load(if quick { 3 } else { 5 });
+    let only = |what: &str| std::env::args().any(|a| a == what);
+    let all = !only("generation") && !only("load");
+    let (large, learned_in) = timed(common::rich_model);
+    if all || only("generation") {
+        generation(runs, &large);
+    }
+    if all || only("load") {
+        load(runs, large, learned_in);
+    }
 }

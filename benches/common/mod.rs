@@ -141,3 +141,32 @@ pub fn message_walk(chain: &Chain, steps: u64, rng: &mut Xoshiro256PlusPlus, lin
 pub fn seeded(seed: u64) -> Xoshiro256PlusPlus {
     Xoshiro256PlusPlus::seed_from_u64(seed)
 }
+
+/// The request messages of a corpus, as byte strings.
+pub fn messages(corpus: &Corpus) -> Vec<Vec<u8>> {
+    corpus
+        .sessions
+        .iter()
+        .flat_map(|s| s.frames.iter().filter(|f| f.role == read::Role::Request).map(move |f| (s, f)))
+        .map(|(s, f)| corpus.bytes(s, f).to_vec())
+        .collect()
+}
+
+/// The first `bytes` bytes (whole lines) of the access log named by `TRACEWALK_BENCH_LOG`, if
+/// set (`benches/figures.sh` sets it to the log it generates).
+pub fn access_log_slice(bytes: usize) -> Option<Vec<u8>> {
+    let path = std::env::var_os("TRACEWALK_BENCH_LOG")?;
+    let mut data = std::fs::read(path).ok()?;
+    if data.len() > bytes {
+        let cut = data[..bytes].iter().rposition(|&b| b == b'\n').map_or(bytes, |i| i + 1);
+        data.truncate(cut);
+    }
+    Some(data)
+}
+
+/// A corpus of one in-memory source read as lines.
+pub fn lines_corpus(bytes: Vec<u8>) -> Corpus {
+    let options = ReadOptions { format: Some(Format::Lines), ..Default::default() };
+    read::read(vec![Source { path: PathBuf::from("access-log-slice"), bytes }], &options, "slice")
+        .expect("reads")
+}
