@@ -10,6 +10,7 @@
 pub mod atomic;
 pub mod chain;
 pub mod escape;
+pub mod feed;
 pub mod generate;
 pub mod inspect;
 pub mod model;
