@@ -26,21 +26,37 @@ impl AliasTable {
 
 /// Fills `prob` and `alias` (both of length `weights.len()`) for `weights`.
 pub(crate) fn build_into(weights: &[f64], prob: &mut [f32], alias: &mut [u32]) {
+    build_with(weights, prob, alias, &mut Scratch::default());
+}
+
+/// Work lists of [`build_with`], reused across tables to avoid three allocations per table.
+#[derive(Debug, Default)]
+pub(crate) struct Scratch {
+    scaled: Vec<f64>,
+    small: Vec<usize>,
+    large: Vec<usize>,
+}
+
+/// [`build_into`] with reusable work lists.
+pub(crate) fn build_with(weights: &[f64], prob: &mut [f32], alias: &mut [u32], scratch: &mut Scratch) {
     let n = weights.len();
     let total: f64 = weights.iter().sum();
     if n == 0 {
         return;
     }
-    if total <= 0.0 || !total.is_finite() {
+    if n == 1 || total <= 0.0 || !total.is_finite() {
+        // One outcome (the commonest table), or no usable weights: every column keeps itself.
         prob.fill(1.0);
         for (i, a) in alias.iter_mut().enumerate() {
             *a = i as u32;
         }
         return;
     }
-    let mut scaled: Vec<f64> = weights.iter().map(|w| w * n as f64 / total).collect();
-    let mut small: Vec<usize> = Vec::new();
-    let mut large: Vec<usize> = Vec::new();
+    let Scratch { scaled, small, large } = scratch;
+    scaled.clear();
+    scaled.extend(weights.iter().map(|w| w * n as f64 / total));
+    small.clear();
+    large.clear();
     for (i, &s) in scaled.iter().enumerate() {
         if s < 1.0 { small.push(i) } else { large.push(i) }
     }
@@ -54,7 +70,7 @@ pub(crate) fn build_into(weights: &[f64], prob: &mut [f32], alias: &mut [u32]) {
             small.push(l);
         }
     }
-    for i in large.into_iter().chain(small) {
+    for &i in large.iter().chain(small.iter()) {
         prob[i] = 1.0;
         alias[i] = i as u32;
     }

@@ -92,6 +92,7 @@ impl Default for ChainConfig {
     }
 }
 
+/// A context's successors and weights, as [`Level::find`] hands them out.
 #[derive(Debug, Clone, Copy)]
 struct Node {
     start: u32,
@@ -100,12 +101,17 @@ struct Node {
     gamma: f64,
 }
 
+/// All contexts of one length. Context `i` owns successors `starts[i]..starts[i+1]` of the
+/// chain's arrays; its symbols are `ctx[i*len..(i+1)*len]`, found through `index`.
+/// Memory per context: 4·len (symbols) + 4 (start) + 16 (denominator, backoff weight) + the
+/// hash table's 5 bytes per bucket.
 #[derive(Debug, Clone)]
 struct Level {
     len: usize,
     discount: f64,
     ctx: Vec<u32>,
-    nodes: Vec<Node>,
+    starts: Vec<u32>,
+    weights: Vec<[f64; 2]>,
     index: HashTable<u32>,
 }
 
@@ -116,11 +122,37 @@ fn hash_ctx(ctx: &[u32]) -> u64 {
 }
 
 impl Level {
-    fn find(&self, ctx: &[u32]) -> Option<&Node> {
+    fn empty(len: usize, discount: f64) -> Level {
+        Level {
+            len,
+            discount,
+            ctx: Vec::new(),
+            starts: Vec::new(),
+            weights: Vec::new(),
+            index: HashTable::new(),
+        }
+    }
+
+    fn contexts(&self) -> usize {
+        self.weights.len()
+    }
+
+    #[inline]
+    fn find(&self, ctx: &[u32]) -> Option<Node> {
         let k = self.len;
         let i =
-            self.index.find(hash_ctx(ctx), |&i| &self.ctx[i as usize * k..(i as usize + 1) * k] == ctx)?;
-        Some(&self.nodes[*i as usize])
+            *self.index.find(hash_ctx(ctx), |&i| &self.ctx[i as usize * k..(i as usize + 1) * k] == ctx)?
+                as usize;
+        let [denom, gamma] = self.weights[i];
+        let start = self.starts[i];
+        Some(Node { start, len: self.starts[i + 1] - start, denom, gamma })
+    }
+
+    fn heap_bytes(&self) -> usize {
+        self.ctx.capacity() * 4
+            + self.starts.capacity() * 4
+            + self.weights.capacity() * 16
+            + self.index.allocation_size()
     }
 }
 
@@ -181,7 +213,8 @@ impl Chain {
         for k in (0..lower_levels).rev() {
             let above = entries.last().expect("top pushed");
             let width = k + 2;
-            let mut map: FxHashMap<&[u32], (u64, u64)> = FxHashMap::default();
+            let mut map: FxHashMap<&[u32], (u64, u64)> =
+                FxHashMap::with_capacity_and_hasher(above.raw.len(), Default::default());
             for (i, g) in above.ids.chunks_exact(width).enumerate() {
                 let e = map.entry(&g[1..]).or_insert((0, 0));
                 e.0 += above.raw[i];
@@ -200,25 +233,21 @@ impl Chain {
         entries.reverse(); // entries[k] = contexts of length k (for built levels)
         let first_built = order + 1 - entries.len();
 
+        // Exact sizes up front: the arrays are the bulk of a loaded model's memory.
+        let built: usize = (first_built..=order).map(|k| entries[k - first_built].raw.len()).sum();
         let mut chain = Chain {
             order,
             symbols,
             smoothing: config.smoothing,
             levels: Vec::with_capacity(order + 1),
-            succ: Vec::new(),
-            count: Vec::new(),
-            prob: Vec::new(),
-            alias: Vec::new(),
+            succ: Vec::with_capacity(built),
+            count: Vec::with_capacity(built),
+            prob: Vec::with_capacity(built),
+            alias: Vec::with_capacity(built),
         };
         for k in 0..=order {
             if k < first_built {
-                chain.levels.push(Level {
-                    len: k,
-                    discount: 0.0,
-                    ctx: Vec::new(),
-                    nodes: Vec::new(),
-                    index: HashTable::new(),
-                });
+                chain.levels.push(Level::empty(k, 0.0));
                 continue;
             }
             let e = &entries[k - first_built];
@@ -237,15 +266,24 @@ impl Chain {
             _ => 0.0,
         };
         let v = (self.symbols - 1) as f64;
-        let mut level =
-            Level { len: k, discount, ctx: Vec::new(), nodes: Vec::new(), index: HashTable::new() };
         let rows = counts.len();
+        let context = |i: usize| &e.ids[i * width..i * width + k];
+        let contexts = 1 + (1..rows).filter(|&i| context(i) != context(i - 1)).count();
+        let mut level = Level {
+            len: k,
+            discount,
+            ctx: Vec::with_capacity(contexts * k),
+            starts: Vec::with_capacity(contexts + 1),
+            weights: Vec::with_capacity(contexts),
+            index: HashTable::with_capacity(contexts),
+        };
         let mut i = 0;
         let mut weights: Vec<f64> = Vec::new();
+        let mut scratch = alias::Scratch::default();
         while i < rows {
-            let ctx = &e.ids[i * width..i * width + k];
+            let ctx = context(i);
             let mut j = i;
-            while j < rows && &e.ids[j * width..j * width + k] == ctx {
+            while j < rows && context(j) == ctx {
                 j += 1;
             }
             let total: f64 = counts[i..j].iter().map(|&c| c as f64).sum();
@@ -268,9 +306,10 @@ impl Chain {
             self.prob.resize(self.prob.len() + n, 1.0);
             self.alias.resize(self.alias.len() + n, 0);
             let s = start as usize;
-            alias::build_into(&weights, &mut self.prob[s..s + n], &mut self.alias[s..s + n]);
-            let node_index = level.nodes.len() as u32;
-            level.nodes.push(Node { start, len: n as u32, denom, gamma });
+            alias::build_with(&weights, &mut self.prob[s..s + n], &mut self.alias[s..s + n], &mut scratch);
+            let node_index = level.weights.len() as u32;
+            level.starts.push(start);
+            level.weights.push([denom, gamma]);
             level.ctx.extend_from_slice(ctx);
             let lctx = &level.ctx;
             level.index.insert_unique(hash_ctx(ctx), node_index, |&x| {
@@ -278,6 +317,7 @@ impl Chain {
             });
             i = j;
         }
+        level.starts.push(self.succ.len() as u32);
         level
     }
 
@@ -306,20 +346,12 @@ impl Chain {
 
     /// Number of stored contexts over all levels.
     pub fn contexts(&self) -> usize {
-        self.levels.iter().map(|l| l.nodes.len()).sum()
+        self.levels.iter().map(Level::contexts).sum()
     }
 
-    /// Approximate heap bytes held by the chain.
+    /// Heap bytes held by the chain (array capacities and hash tables).
     pub fn heap_bytes(&self) -> usize {
-        let per_level: usize = self
-            .levels
-            .iter()
-            .map(|l| {
-                l.ctx.capacity() * 4
-                    + l.nodes.capacity() * std::mem::size_of::<Node>()
-                    + l.index.capacity() * 5
-            })
-            .sum();
+        let per_level: usize = self.levels.iter().map(Level::heap_bytes).sum();
         per_level
             + self.succ.capacity() * 4
             + self.count.capacity() * 4
@@ -337,7 +369,7 @@ impl Chain {
         &buf[..k]
     }
 
-    fn node(&self, window: &[u32], k: usize) -> Option<&Node> {
+    fn node(&self, window: &[u32], k: usize) -> Option<Node> {
         self.levels[k].find(&window[self.order - k..])
     }
 
@@ -359,7 +391,7 @@ impl Chain {
     }
 
     /// The deepest level whose context (the last symbols of `history`) was seen, with its node.
-    fn longest_seen(&self, window: &[u32]) -> Option<(usize, &Node)> {
+    fn longest_seen(&self, window: &[u32]) -> Option<(usize, Node)> {
         (0..=self.order).rev().find_map(|k| self.node(window, k).map(|n| (k, n)))
     }
 
@@ -427,7 +459,7 @@ impl Chain {
         1 + (((rng.next_u64() >> 32) * n) >> 32) as u32
     }
 
-    fn alpha(&self, node: &Node, discount: f64, w: u32) -> f64 {
+    fn alpha(&self, node: Node, discount: f64, w: u32) -> f64 {
         let (s, n) = (node.start as usize, node.len as usize);
         match self.succ[s..s + n].binary_search(&w) {
             Ok(i) => (self.count[s + i] as f64 - discount).max(0.0) / node.denom,
@@ -544,9 +576,9 @@ impl Chain {
     pub fn contexts_of_len(&self, len: usize) -> impl Iterator<Item = (&[u32], &[u32])> + '_ {
         let level = self.levels.get(len);
         level.into_iter().flat_map(move |l| {
-            l.nodes.iter().enumerate().map(move |(i, node)| {
-                let (s, n) = (node.start as usize, node.len as usize);
-                (&l.ctx[i * l.len..(i + 1) * l.len], &self.succ[s..s + n])
+            (0..l.contexts()).map(move |i| {
+                let (s, e) = (l.starts[i] as usize, l.starts[i + 1] as usize);
+                (&l.ctx[i * l.len..(i + 1) * l.len], &self.succ[s..e])
             })
         })
     }

@@ -1,6 +1,6 @@
 //! Counting n-grams of padded sequences, and the canonical table models store.
 
-use rustc_hash::FxHashMap;
+use hashbrown::HashTable;
 use serde::{Deserialize, Serialize};
 
 use crate::symbol::{BEGIN, END};
@@ -23,16 +23,46 @@ impl Part {
 
 /// Counts (order+1)-grams. Each sequence is padded with `order` [`BEGIN`]s and one [`END`], so
 /// every position (including the end) has exactly one gram and lower orders are marginals.
+///
+/// Distinct grams are stored back to back in one flat array and found through a hash table of
+/// row numbers: no allocation per gram, and a lookup compares a few integers in place.
+/// Time: O(order) per position; memory: (order+1)·4 + 16 bytes per distinct gram plus the table.
 #[derive(Debug, Clone)]
 pub struct GramCounter {
     order: usize,
-    map: FxHashMap<Box<[u32]>, [u64; 2]>,
+    /// Row `i` is `ids[i*(order+1)..(i+1)*(order+1)]`, in first-seen order.
+    ids: Vec<u32>,
+    counts: Vec<[u64; 2]>,
+    index: HashTable<u32>,
     window: Vec<u32>,
+}
+
+/// FxHash-style mix of a gram: cheap, and good enough for symbol ids.
+#[inline]
+fn hash_gram(gram: &[u32]) -> u64 {
+    const K: u64 = 0xf135_7aea_2e62_a9c5;
+    let mut h = gram.len() as u64;
+    for &s in gram {
+        h = (h.rotate_left(26) ^ s as u64).wrapping_mul(K);
+    }
+    h ^ (h >> 29)
+}
+
+/// Slice equality without a call into `memcmp` (grams are a handful of integers).
+#[inline]
+fn same_gram(a: &[u32], b: &[u32]) -> bool {
+    a.len() == b.len() && a.iter().zip(b).all(|(x, y)| x == y)
 }
 
 impl GramCounter {
     pub fn new(order: usize) -> GramCounter {
-        GramCounter { order, map: FxHashMap::default(), window: Vec::with_capacity(order + 1) }
+        GramCounter {
+            order,
+            ids: Vec::new(),
+            counts: Vec::new(),
+            index: HashTable::new(),
+            window: Vec::with_capacity(order + 1),
+        }
     }
 
     pub fn order(&self) -> usize {
@@ -41,46 +71,72 @@ impl GramCounter {
 
     /// Counts one sequence (without padding).
     pub fn add_sequence(&mut self, seq: &[u32], part: Part) {
+        let mut counts = [0, 0];
+        counts[part as usize] = 1;
+        self.add_sequence_counts(seq, counts);
+    }
+
+    /// Counts a sequence seen `counts[0]` times in the fit part and `counts[1]` times in the
+    /// check part: the same as that many calls of [`GramCounter::add_sequence`].
+    pub fn add_sequence_counts(&mut self, seq: &[u32], counts: [u64; 2]) {
         let n = self.order + 1;
-        self.window.clear();
-        self.window.resize(n, BEGIN);
+        let mut window = std::mem::take(&mut self.window);
+        window.clear();
+        window.resize(n, BEGIN);
         for &s in seq.iter().chain(std::iter::once(&END)) {
-            self.window.rotate_left(1);
-            self.window[n - 1] = s;
-            match self.map.get_mut(self.window.as_slice()) {
-                Some(c) => c[part as usize] += 1,
-                None => {
-                    let mut c = [0, 0];
-                    c[part as usize] = 1;
-                    self.map.insert(self.window.as_slice().into(), c);
+            window.copy_within(1.., 0);
+            window[n - 1] = s;
+            for (part, &c) in counts.iter().enumerate() {
+                if c > 0 {
+                    self.add(&window, part, c);
                 }
+            }
+        }
+        self.window = window;
+    }
+
+    #[inline]
+    fn add(&mut self, gram: &[u32], part: usize, count: u64) {
+        let n = self.order + 1;
+        let ids = &self.ids;
+        let hash = hash_gram(gram);
+        match self.index.find(hash, |&r| same_gram(&ids[r as usize * n..(r as usize + 1) * n], gram)) {
+            Some(&r) => self.counts[r as usize][part] += count,
+            None => {
+                let r = self.counts.len() as u32;
+                self.ids.extend_from_slice(gram);
+                let mut c = [0, 0];
+                c[part] = count;
+                self.counts.push(c);
+                let ids = &self.ids;
+                self.index.insert_unique(hash, r, |&r| hash_gram(&ids[r as usize * n..(r as usize + 1) * n]));
             }
         }
     }
 
     /// Adds counts for one gram of length order+1.
     pub fn add_gram(&mut self, gram: &[u32], counts: [u64; 2]) {
-        debug_assert_eq!(gram.len(), self.order + 1);
-        let c = self.map.entry(gram.into()).or_insert([0, 0]);
-        c[0] += counts[0];
-        c[1] += counts[1];
+        assert_eq!(gram.len(), self.order + 1, "gram of the wrong length");
+        self.add(gram, 0, counts[0]);
+        self.add(gram, 1, counts[1]);
     }
 
     /// Number of distinct grams.
     pub fn len(&self) -> usize {
-        self.map.len()
+        self.counts.len()
     }
 
     pub fn is_empty(&self) -> bool {
-        self.map.is_empty()
+        self.counts.is_empty()
     }
 
     /// The sorted table, symbols renumbered by `remap`.
     pub fn into_grams(self, remap: impl Fn(u32) -> u32) -> Grams {
-        let mut rows: Vec<(Vec<u32>, [u64; 2])> =
-            self.map.into_iter().map(|(g, c)| (g.iter().map(|&s| remap(s)).collect(), c)).collect();
-        rows.sort_unstable_by(|a, b| a.0.cmp(&b.0));
-        Grams::from_sorted_rows(self.order, rows)
+        let mut ids = self.ids;
+        for s in &mut ids {
+            *s = remap(*s);
+        }
+        Grams::from_unsorted(self.order, &ids, &self.counts)
     }
 }
 
@@ -99,20 +155,33 @@ impl Grams {
         Grams { order, ids: Vec::new(), counts: Vec::new() }
     }
 
-    fn from_sorted_rows(order: usize, rows: Vec<(Vec<u32>, [u64; 2])>) -> Grams {
-        let mut g = Grams::empty(order);
-        for (ids, c) in rows {
-            let n = g.counts.len();
-            if n > 0 && g.gram(n - 1) == ids.as_slice() {
-                let last = &mut g.counts[n - 1];
-                last[0] += c[0];
-                last[1] += c[1];
-            } else if c != [0, 0] {
-                g.ids.extend_from_slice(&ids);
-                g.counts.push(c);
-            }
+    /// The canonical table of unsorted rows (flat, `order+1` symbols each): sorted, equal rows
+    /// summed, zero rows dropped. Sorts row numbers, so no row is copied more than once.
+    fn from_unsorted(order: usize, ids: &[u32], counts: &[[u64; 2]]) -> Grams {
+        let n = order + 1;
+        debug_assert_eq!(ids.len(), counts.len() * n);
+        let row = |i: u32| &ids[i as usize * n..(i as usize + 1) * n];
+        let mut perm: Vec<u32> = (0..counts.len() as u32).collect();
+        perm.sort_unstable_by(|&a, &b| row(a).cmp(row(b)));
+        let mut g =
+            Grams { order, ids: Vec::with_capacity(ids.len()), counts: Vec::with_capacity(counts.len()) };
+        for &i in &perm {
+            g.push_sorted(row(i), counts[i as usize]);
         }
         g
+    }
+
+    /// Appends a row not below the last one: sums it into the last if equal, drops zero rows.
+    fn push_sorted(&mut self, gram: &[u32], c: [u64; 2]) {
+        let n = self.counts.len();
+        if n > 0 && same_gram(self.gram(n - 1), gram) {
+            let last = &mut self.counts[n - 1];
+            last[0] += c[0];
+            last[1] += c[1];
+        } else if c != [0, 0] {
+            self.ids.extend_from_slice(gram);
+            self.counts.push(c);
+        }
     }
 
     /// Number of rows.
@@ -142,28 +211,30 @@ impl Grams {
 
     /// Renumbers symbols and re-sorts.
     pub fn remap(&self, remap: impl Fn(u32) -> u32) -> Grams {
-        let mut rows: Vec<(Vec<u32>, [u64; 2])> =
-            self.rows().map(|(g, c)| (g.iter().map(|&s| remap(s)).collect(), c)).collect();
-        rows.sort_unstable_by(|a, b| a.0.cmp(&b.0));
-        Grams::from_sorted_rows(self.order, rows)
+        let ids: Vec<u32> = self.ids.iter().map(|&s| remap(s)).collect();
+        Grams::from_unsorted(self.order, &ids, &self.counts)
     }
 
     /// Sum of two tables of the same order (a merge-join of sorted rows).
     pub fn merge(&self, other: &Grams) -> Grams {
         assert_eq!(self.order, other.order, "merging tables of different order");
-        let mut rows = Vec::with_capacity(self.len() + other.len());
+        let mut g = Grams {
+            order: self.order,
+            ids: Vec::with_capacity(self.ids.len() + other.ids.len()),
+            counts: Vec::with_capacity(self.len() + other.len()),
+        };
         let (mut i, mut j) = (0, 0);
         while i < self.len() || j < other.len() {
             let take_left = j >= other.len() || (i < self.len() && self.gram(i) <= other.gram(j));
             if take_left {
-                rows.push((self.gram(i).to_vec(), self.counts[i]));
+                g.push_sorted(self.gram(i), self.counts[i]);
                 i += 1;
             } else {
-                rows.push((other.gram(j).to_vec(), other.counts[j]));
+                g.push_sorted(other.gram(j), other.counts[j]);
                 j += 1;
             }
         }
-        Grams::from_sorted_rows(self.order, rows)
+        g
     }
 
     /// The table of a lower order: grams keep their last `order+1` symbols, counts are summed.
@@ -173,15 +244,12 @@ impl Grams {
             return self.clone();
         }
         let drop = self.order - order;
-        let mut map: FxHashMap<&[u32], [u64; 2]> = FxHashMap::default();
+        let mut counter = GramCounter::new(order);
         for (g, c) in self.rows() {
-            let e = map.entry(&g[drop..]).or_insert([0, 0]);
-            e[0] += c[0];
-            e[1] += c[1];
+            counter.add(&g[drop..], 0, c[0]);
+            counter.add(&g[drop..], 1, c[1]);
         }
-        let mut rows: Vec<(Vec<u32>, [u64; 2])> = map.into_iter().map(|(g, c)| (g.to_vec(), c)).collect();
-        rows.sort_unstable_by(|a, b| a.0.cmp(&b.0));
-        Grams::from_sorted_rows(order, rows)
+        counter.into_grams(|s| s)
     }
 
     /// Checks the table against an alphabet of `symbols` ids: lengths, ranges, canonical order,
@@ -411,6 +479,31 @@ mod tests {
         cb.add_sequence(&b, Part::Check);
         let merged = ca.into_grams(|s| s).merge(&cb.into_grams(|s| s));
         assert_eq!(merged, all.into_grams(|s| s));
+    }
+
+    #[test]
+    fn weighted_sequences_equal_repeated_ones() {
+        let mut repeated = GramCounter::new(2);
+        for part in [Part::Fit, Part::Check, Part::Fit] {
+            repeated.add_sequence(&[4, 5, 4], part);
+        }
+        repeated.add_sequence(&[5], Part::Check);
+        let mut weighted = GramCounter::new(2);
+        weighted.add_sequence_counts(&[5], [0, 1]);
+        weighted.add_sequence_counts(&[4, 5, 4], [2, 1]);
+        weighted.add_sequence_counts(&[6], [0, 0]);
+        assert_eq!(weighted.len(), repeated.len());
+        assert_eq!(weighted.into_grams(|s| s), repeated.into_grams(|s| s));
+    }
+
+    #[test]
+    fn remap_sums_rows_that_become_equal() {
+        let mut c = GramCounter::new(1);
+        c.add_sequence(&[3, 4], Part::Fit);
+        c.add_sequence(&[3, 5], Part::Check);
+        let g = c.into_grams(|s| s).remap(|s| if s == 5 { 4 } else { s });
+        let rows: Vec<(Vec<u32>, [u64; 2])> = g.rows().map(|(r, c)| (r.to_vec(), c)).collect();
+        assert_eq!(rows, vec![(vec![0, 3], [1, 1]), (vec![3, 4], [1, 1]), (vec![4, 1], [1, 1])]);
     }
 
     #[test]

@@ -1,8 +1,11 @@
 //! A model made ready to use: smoothed chains, vocabulary lookups, template index and pool
 //! samplers. Built once per run; the count tables are dropped after the chains are built.
 
+use std::hash::{Hash, Hasher};
+
+use hashbrown::HashTable;
 use rand::Rng;
-use rustc_hash::FxHashMap;
+use rustc_hash::{FxHashMap, FxHasher};
 
 use super::{Model, ModelError, Pool, Settings, Totals};
 use crate::chain::{AliasTable, Chain, ChainConfig, Parts};
@@ -34,7 +37,8 @@ pub struct Compiled {
     pub vocab: Vocab,
     /// Token symbols of each template (session symbol `FIRST_TEMPLATE + i`).
     pub templates: Vec<Box<[u32]>>,
-    template_index: FxHashMap<Box<[u32]>, u32>,
+    /// Template numbers by content (hashes of `templates`, so the symbols are stored once).
+    template_index: HashTable<u32>,
     frequent: Vec<bool>,
     /// Chain over templates within a session.
     pub session: Chain,
@@ -75,6 +79,12 @@ fn rare_templates_by_predecessor(model: &Model, frequent: &[bool]) -> FxHashMap<
         .collect()
 }
 
+fn hash_symbols(symbols: &[u32]) -> u64 {
+    let mut h = FxHasher::default();
+    symbols.hash(&mut h);
+    h.finish()
+}
+
 impl Compiled {
     /// Compiles `model` (whose content hash is `hash`).
     pub fn new(model: Model, hash: String) -> Result<Compiled, ModelError> {
@@ -94,8 +104,11 @@ impl Compiled {
         let templates: Vec<Box<[u32]>> = templates.into_iter().map(|t| t.0.into_boxed_slice()).collect();
         // Rare templates stay listed (symbols are stable) but are not looked up: the session
         // chain knows them only as novel messages.
-        let template_index =
-            templates.iter().enumerate().map(|(i, t)| (t.clone(), FIRST_TEMPLATE + i as u32)).collect();
+        let mut template_index = HashTable::with_capacity(templates.len());
+        for (i, t) in templates.iter().enumerate() {
+            template_index
+                .insert_unique(hash_symbols(t), i as u32, |&j| hash_symbols(&templates[j as usize]));
+        }
         let mut pool_index = FxHashMap::default();
         let mut class_pool: FxHashMap<u32, u32> = FxHashMap::default();
         let mut best_seen: FxHashMap<u32, u64> = FxHashMap::default();
@@ -147,7 +160,9 @@ impl Compiled {
 
     /// Symbol of a template seen in training, however rarely.
     pub fn learned_template(&self, tokens: &[u32]) -> Option<u32> {
-        self.template_index.get(tokens).copied()
+        let i =
+            self.template_index.find(hash_symbols(tokens), |&i| *self.templates[i as usize] == *tokens)?;
+        Some(FIRST_TEMPLATE + i)
     }
 
     /// Token symbols of the template with this session symbol.

@@ -12,7 +12,7 @@ use super::pool::PoolBuilder;
 use super::{Draft, Model, ModelError, Settings, Totals, canonicalize};
 use crate::chain::{ChainConfig, GramCounter, OrderScore, Part, Smoothing, pick_order};
 use crate::read::{Corpus, Role, Skips};
-use crate::symbol::BEGIN;
+use crate::symbol::{BEGIN, FIRST_TOKEN};
 use crate::token::{Interner, PieceKind, RuleSet, Tokenized, Tokenizer, is_anchor_bytes};
 
 /// Context order of a chain: fixed, or chosen by held-out perplexity up to a maximum.
@@ -119,10 +119,15 @@ fn learn_unit(
     let mut counter = GramCounter::new(order);
     let mut templates: FxHashMap<Box<[u32]>, u32> = FxHashMap::default();
     let mut template_list: Vec<Vec<u32>> = Vec::new();
+    // Fit and check counts per template: the message chain is counted once per distinct
+    // template at the end (counts are additive), not once per message.
+    let mut template_counts: Vec<[u64; 2]> = Vec::new();
     let mut pools: FxHashMap<(u16, u32), PoolBuilder> = FxHashMap::default();
     let mut frames = Vec::with_capacity(unit.frames.len());
     let mut tokenized = Tokenized::default();
     let mut symbols: Vec<u32> = Vec::new();
+    // Per interned symbol: is it a literal that anchors slot pools (checked once, not per piece).
+    let mut anchors: Vec<bool> = Vec::new();
     let mut tokens = 0u64;
     for &(si, fi) in &unit.frames {
         let session = &corpus.sessions[si as usize];
@@ -133,8 +138,12 @@ fn learn_unit(
         for piece in &tokenized.pieces {
             let s = interner.intern(&tokenized, piece);
             symbols.push(s);
+            let local = (s - FIRST_TOKEN) as usize;
+            if local == anchors.len() {
+                anchors.push(piece.kind == PieceKind::Lit && is_anchor_bytes(tokenized.bytes(piece)));
+            }
             match piece.kind {
-                PieceKind::Lit if is_anchor_bytes(tokenized.bytes(piece)) => anchor = s,
+                PieceKind::Lit if anchors[local] => anchor = s,
                 PieceKind::Slot(class) => pools
                     .entry((class, anchor))
                     .or_insert_with(|| PoolBuilder::new(pool_cap))
@@ -144,17 +153,21 @@ fn learn_unit(
         }
         tokens += symbols.len() as u64;
         let hash = super::value_hash(bytes);
-        counter.add_sequence(&symbols, Part::of_hash(hash));
         let template = match templates.get(symbols.as_slice()) {
             Some(&t) => t,
             None => {
                 let t = template_list.len() as u32;
                 template_list.push(symbols.clone());
+                template_counts.push([0, 0]);
                 templates.insert(symbols.as_slice().into(), t);
                 t
             }
         };
+        template_counts[template as usize][Part::of_hash(hash) as usize] += 1;
         frames.push((si, template, hash));
+    }
+    for (t, &counts) in template_list.iter().zip(&template_counts) {
+        counter.add_sequence_counts(t, counts);
     }
     if let Some(report) = progress {
         report(unit.bytes);

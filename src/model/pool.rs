@@ -87,6 +87,9 @@ impl PoolBuilder {
             return;
         }
         let h = value_hash(value);
+        if h > self.threshold {
+            return; // the pool is full and keeps only smaller hashes
+        }
         if let Some(e) = self.kept.get_mut(&h) {
             if &*e.0 == value {
                 e.1 += 1;

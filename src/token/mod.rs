@@ -101,12 +101,14 @@ pub struct Piece {
     pub end: u32,
 }
 
-/// A tokenized message. Reuse one value across messages to avoid allocation.
+/// A tokenized message. Reuse one value across messages (one per thread) to avoid allocation:
+/// it also keeps the lexer's search state.
 #[derive(Debug, Clone, Default)]
 pub struct Tokenized {
     /// The message bytes, followed by any bytes the tokenizer produced (a de-chunked body).
     pub arena: Vec<u8>,
     pub pieces: Vec<Piece>,
+    lex_cache: Option<lexer::LexCache>,
 }
 
 impl Tokenized {

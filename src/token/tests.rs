@@ -113,3 +113,92 @@ fn lines_tokenize_losslessly() {
         assert_eq!(back, s);
     }
 }
+
+/// Random messages made of fragments that sit on the edges of the built-in rules (word
+/// boundaries, partial numbers, quotes, colons, high bytes), plus random bytes.
+fn edgy_messages(seed: u64, count: usize) -> Vec<Vec<u8>> {
+    use rand::{RngExt, SeedableRng};
+    const FRAGMENTS: &[&[u8]] = &[
+        b" ",
+        b"  ",
+        b"\t",
+        b"\r\n",
+        b"\n",
+        b"\"",
+        b"\\\"",
+        b"=",
+        b":",
+        b"::",
+        b"-",
+        b".",
+        b"/",
+        b"+",
+        b"_",
+        b"@",
+        b"x",
+        b"ab",
+        b"Mon, ",
+        b"0x",
+        b"1f",
+        b"12",
+        b"7",
+        b"255.",
+        b"2026-11-30",
+        b"T08:15:02",
+        b" +0000",
+        b"30/Nov/2026:08:15:02",
+        b"fe80::1",
+        b"3f2a1b4c-0d9e-4f11-8a2b-1c2d3e4f5a6b",
+        b"ana@example.org",
+        b"dGhpcyBpcyBhIHRlc3Q=",
+        b"abcdefghijklmnopqrstu1",
+        b"\xc3\xa9",
+        b"\xff",
+        b"\x00",
+    ];
+    let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(seed);
+    (0..count)
+        .map(|_| {
+            let mut m = Vec::new();
+            for _ in 0..rng.random_range(0..24) {
+                if rng.random_range(0..8) == 0 {
+                    m.push(rng.random::<u8>());
+                } else {
+                    m.extend_from_slice(FRAGMENTS[rng.random_range(0..FRAGMENTS.len())]);
+                }
+            }
+            m
+        })
+        .collect()
+}
+
+#[test]
+fn fast_lexer_equals_the_anchored_definition() {
+    let mine = RuleSet::from_yaml(
+        concat!(
+            "classes:\n",
+            "- name: field\n  pattern: '^[a-z]+(=)'\n  group: 1\n",
+            "- name: tail\n  pattern: '[0-9]+\\b$'\n",
+            "- name: colon-word\n  pattern: ':([a-z]+)'\n  group: 1\n  refine: true\n",
+            "- name: noisy\n  pattern: '\\B[a-f]{2,}'\n  requires: 'f'\n",
+        ),
+        "test rules",
+    )
+    .unwrap();
+    let no_rules = RuleSet::from_yaml("builtins: false\n", "empty").unwrap();
+    for rules in [RuleSet::builtin(), mine, no_rules] {
+        let lexer = Lexer::new(&rules, "rules").unwrap();
+        let (mut fast, mut slow) = (Tokenized::default(), Tokenized::default());
+        for (i, m) in edgy_messages(11, 3000).iter().enumerate() {
+            // Lex a middle span too, so look-behind before the span start is exercised.
+            let spans = [(0, m.len()), (m.len() / 3, m.len() - m.len() / 4)];
+            for (start, end) in spans {
+                fast.reset(m);
+                slow.reset(m);
+                lexer.lex(&mut fast, start, end);
+                lexer.lex_anchored(&mut slow, start, end);
+                assert_eq!(fast.pieces, slow.pieces, "message {i} {:?}", crate::escape::escape(m));
+            }
+        }
+    }
+}

@@ -10,6 +10,8 @@ use crate::symbol::FIRST_TOKEN;
 #[derive(Debug, Clone)]
 pub struct Interner {
     tokens: Vec<Token>,
+    /// One-byte literals (spaces, punctuation: most pieces), found without hashing.
+    bytes: [Option<u32>; 256],
     lits: FxHashMap<Box<[u8]>, u32>,
     slots: Vec<Option<u32>>,
     others: FxHashMap<Token, u32>,
@@ -21,6 +23,7 @@ impl Interner {
     pub fn new(classes: &[String]) -> Interner {
         Interner {
             tokens: Vec::new(),
+            bytes: [None; 256],
             lits: FxHashMap::default(),
             slots: vec![None; classes.len()],
             others: FxHashMap::default(),
@@ -38,6 +41,14 @@ impl Interner {
         match piece.kind {
             PieceKind::Lit => {
                 let bytes = tokenized.bytes(piece);
+                if let [b] = bytes {
+                    if let Some(s) = self.bytes[*b as usize] {
+                        return s;
+                    }
+                    let s = self.add(Token::Lit(bytes.to_vec()));
+                    self.bytes[*b as usize] = Some(s);
+                    return s;
+                }
                 if let Some(&s) = self.lits.get(bytes) {
                     return s;
                 }
