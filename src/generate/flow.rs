@@ -234,7 +234,7 @@ pub struct FlowOptions {
 
 /// Anchor key id and class (index into the tokenizer's classes) of each slot of a request or
 /// reply token sequence.
-fn slot_keys(model: &Compiled, side: Side, slots: &[SlotRef]) -> Vec<(Option<u32>, Option<u32>)> {
+pub(crate) fn slot_keys(model: &Compiled, side: Side, slots: &[SlotRef]) -> Vec<(Option<u32>, Option<u32>)> {
     let vocab = match side {
         Side::Request => &model.vocab,
         Side::Reply => &model.replies.vocab,

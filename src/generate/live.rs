@@ -1,1 +1,194 @@
+//! Sessions against a target that replies: the values the target returns fill the later
+//! messages of the same session.
+//!
+//! A generated walk decides the messages and, through value flow ([`super::flow`]), which slots
+//! copy an earlier value and from where (a template slot, or a kind of slot). Its own expected
+//! replies are predictions; against a real target, [`LiveSession`] replaces them by what the
+//! target answers. The caller alternates:
+//!
+//! ```text
+//! let mut live = LiveSession::new(&model, generator.walk(seed, i))?;
+//! while let Some(message) = live.next_message() {
+//!     let reply = send_and_read(&message);   // the harness's business
+//!     live.observe_reply(&reply);
+//! }
+//! let sent = live.trace();                    // what was sent, with the replies seen
+//! ```
+//!
+//! `next_message` resolves each copied slot of the next step against the session so far:
+//! the latest value of its source template slot, else (the target answered in another shape)
+//! the latest value of the same kind of slot (anchor key) from any message; when neither exists
+//! the generated value stays. `observe_reply` frames the bytes as the model's
+//! corpus was framed (HTTP responses; lines), tokenizes each reply with the model's rules and
+//! records its slot values. Everything is deterministic given the walk and the replies.
 
+use super::flow::{FlowAction, Memory, MessageRef, Source};
+use super::{GenError, Walk};
+use crate::model::Compiled;
+use crate::model::flow::Side;
+use crate::read::Reader;
+use crate::token::{PieceKind, Tokenized, is_anchor_bytes};
+use crate::trace::{Trace, TraceMessage};
+
+/// One session of a walk played against a target (see the module documentation).
+#[derive(Debug)]
+pub struct LiveSession<'m> {
+    model: &'m Compiled,
+    walk: Walk,
+    next: usize,
+    memory: Memory,
+    reader: Reader,
+    scratch: Tokenized,
+    /// Replies observed after each sent step.
+    replies: Vec<Vec<Vec<u8>>>,
+}
+
+impl<'m> LiveSession<'m> {
+    /// A live session over `walk` (generated with `model`). The walk's expected replies are
+    /// dropped: the target's count.
+    pub fn new(model: &'m Compiled, mut walk: Walk) -> Result<LiveSession<'m>, GenError> {
+        let reader = Reader::new(&model.settings.read).map_err(|e| GenError::Options(e.to_string()))?;
+        for s in &mut walk.steps {
+            s.replies.clear();
+        }
+        Ok(LiveSession {
+            model,
+            walk,
+            next: 0,
+            memory: Memory::new(model.flow.window()),
+            reader,
+            scratch: Tokenized::default(),
+            replies: Vec::new(),
+        })
+    }
+
+    /// The next message to send, its copied slots resolved against this session so far; `None`
+    /// when the walk is done.
+    pub fn next_message(&mut self) -> Option<Vec<u8>> {
+        let model = self.model;
+        let i = self.next;
+        let step = self.walk.steps.get_mut(i)?;
+        self.next += 1;
+        self.replies.push(Vec::new());
+        for f in &mut step.flow {
+            if f.action != FlowAction::Copied {
+                continue;
+            }
+            // The target decides the shape of its replies: a value of the same kind from any
+            // message will do when the source template slot has none.
+            let found = match f.source {
+                Source::Slot { key, anchor } => {
+                    self.memory.by_key(key).or_else(|| self.memory.by_anchor(anchor, false))
+                }
+                Source::Anchor(a) => self.memory.by_anchor(a, false),
+            };
+            if let Some(found) = found
+                && let Some(v) = step.values.get_mut(f.slot as usize)
+            {
+                *v = found.value.to_vec();
+                f.from = Some(found.from);
+                step.verbatim = None;
+            }
+        }
+        let template = match step.template {
+            crate::symbol::NOVEL => model.learned_template(&step.tokens),
+            t => Some(t),
+        };
+        let from = MessageRef { step: i as u32, reply: None };
+        if step.is_opaque() {
+            self.memory.record(from, None, &[], &[]);
+        } else {
+            let slots = match template {
+                Some(t) => model.template_slots(t).to_vec(),
+                None => model.slots_of(&step.tokens),
+            };
+            let keys = super::flow::slot_keys(model, Side::Request, &slots);
+            self.memory.record(from, template.map(|t| (Side::Request, t)), &keys, &step.values);
+        }
+        Some(step.render(model))
+    }
+
+    /// Records what the target answered to the message last sent: one or more replies, framed
+    /// as the model's corpus was (every frame counts as a reply, whatever its role).
+    pub fn observe_reply(&mut self, bytes: &[u8]) {
+        let Some(step) = self.next.checked_sub(1) else { return };
+        let (frames, _) = self.reader.messages(bytes);
+        let model = self.model;
+        let classes = model.tokenizer.classes();
+        for (frame, _) in frames {
+            model.tokenizer.tokenize(&frame, &mut self.scratch);
+            let mut symbols = Some(Vec::with_capacity(self.scratch.pieces.len()));
+            let mut keys = Vec::new();
+            let mut values = Vec::new();
+            let mut anchor: Option<&[u8]> = None;
+            for piece in &self.scratch.pieces {
+                let symbol = model.replies.vocab.lookup(&self.scratch, piece);
+                match (symbols.as_mut(), symbol) {
+                    (Some(list), Some(s)) => list.push(s),
+                    _ => symbols = None,
+                }
+                match piece.kind {
+                    PieceKind::Lit if is_anchor_bytes(self.scratch.bytes(piece)) => {
+                        anchor = Some(self.scratch.bytes(piece));
+                    }
+                    PieceKind::Slot(c) => {
+                        let class = classes[c as usize].as_str();
+                        keys.push((model.flow.anchor_id(Side::Reply, class, anchor), Some(c as u32)));
+                        values.push(self.scratch.bytes(piece).to_vec());
+                    }
+                    _ => {}
+                }
+            }
+            let template = symbols.and_then(|s| model.replies.learned_template(&s));
+            let k = self.replies[step].len() as u32;
+            let from = MessageRef { step: step as u32, reply: Some(k) };
+            self.memory.record(from, template.map(|t| (Side::Reply, t)), &keys, &values);
+            self.replies[step].push(frame);
+        }
+    }
+
+    /// The walk as sent so far (copied values as resolved) and, after it, the steps not sent.
+    pub fn walk(&self) -> &Walk {
+        &self.walk
+    }
+
+    /// The steps sent so far as a trace, each followed by the replies observed (marked
+    /// `reply`; not part of the wire bytes). Copies show as `flow:S<N` marks.
+    pub fn trace(&self) -> Trace {
+        let mut numbers: Vec<(usize, Vec<usize>)> = Vec::new();
+        let mut n = 0;
+        for r in self.replies.iter() {
+            n += 1;
+            let own = n;
+            let rs = r
+                .iter()
+                .map(|_| {
+                    n += 1;
+                    n
+                })
+                .collect();
+            numbers.push((own, rs));
+        }
+        let number = |m: MessageRef| {
+            let (own, rs) = numbers.get(m.step as usize)?;
+            match m.reply {
+                None => Some(*own),
+                Some(k) => rs.get(k as usize).copied(),
+            }
+        };
+        let mut messages = Vec::new();
+        for (step, replies) in self.walk.steps.iter().zip(&self.replies) {
+            let mut marks = step.marks.clone();
+            marks.extend(super::flow::marks(&step.flow, &number));
+            messages.push(TraceMessage {
+                bytes: step.render(self.model),
+                surprise: Some(step.surprise),
+                marks,
+            });
+            for r in replies {
+                messages.push(TraceMessage { bytes: r.clone(), surprise: None, marks: vec!["reply".into()] });
+            }
+        }
+        Trace { header: Vec::new(), messages }
+    }
+}
