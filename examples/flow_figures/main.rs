@@ -15,9 +15,8 @@ mod shop_ids;
 
 use std::path::Path;
 
-use tracewalk::generate::{GenOptions, Generator};
 use tracewalk::model::{Compiled, LearnOptions};
-use tracewalk::read::{self, Corpus, Role};
+use tracewalk::read::{self, Corpus};
 
 fn read_corpus(name: &str) -> Corpus {
     let path = Path::new(env!("CARGO_MANIFEST_DIR")).join("corpora").join(name);
@@ -30,31 +29,6 @@ fn learn(corpus: &Corpus) -> Compiled {
     let (model, _) = tracewalk::model::learn(corpus, &LearnOptions::default(), None).expect("learns");
     let hash = tracewalk::model::content_hash(&model);
     Compiled::new(model, hash).expect("compiles")
-}
-
-/// Figure 1 on the corpus itself.
-pub fn corpus_tally(corpus: &Corpus) -> shop_ids::Tally {
-    let mut tally = shop_ids::Tally::default();
-    for s in &corpus.sessions {
-        let messages: Vec<shop_ids::Message<'_>> =
-            s.frames.iter().map(|f| (f.role == Role::Reply, corpus.bytes(s, f))).collect();
-        tally.add(&shop_ids::check(&messages));
-    }
-    tally
-}
-
-/// Figure 1 on `n` generated sessions (expected replies included, as they introduce the ids).
-pub fn generated_tally(model: &Compiled, flow: bool, n: u64, seed: u64) -> shop_ids::Tally {
-    let options = GenOptions { flow, replies: true, ..GenOptions::default() };
-    let mut generator = Generator::new(model, options).expect("options");
-    let mut tally = shop_ids::Tally::default();
-    for i in 0..n {
-        let trace = generator.trace(seed, i);
-        let messages: Vec<shop_ids::Message<'_>> =
-            trace.messages.iter().map(|m| (m.is_reply(), m.bytes.as_slice())).collect();
-        tally.add(&shop_ids::check(&messages));
-    }
-    tally
 }
 
 fn print_row(what: &str, t: &shop_ids::Tally) {
@@ -76,9 +50,9 @@ fn main() {
 
     let corpus = read_corpus("shop-api");
     let model = learn(&corpus);
-    let real = corpus_tally(&corpus);
-    let on = generated_tally(&model, true, n, seed);
-    let off = generated_tally(&model, false, n, seed);
+    let real = shop_ids::corpus_tally(&corpus);
+    let on = shop_ids::generated_tally(&model, true, n, seed);
+    let off = shop_ids::generated_tally(&model, false, n, seed);
     println!("figure 1: shop-api sessions whose id references all point to ids introduced earlier");
     print_row("corpus", &real);
     print_row("generated, flow on", &on);

@@ -13,6 +13,10 @@
 
 use std::collections::HashSet;
 
+use tracewalk::generate::{GenOptions, Generator};
+use tracewalk::model::Compiled;
+use tracewalk::read::{Corpus, Role};
+
 /// One message of a session: whether it is a reply, and its bytes.
 pub type Message<'a> = (bool, &'a [u8]);
 
@@ -141,4 +145,29 @@ pub fn check(messages: &[Message<'_>]) -> SessionIds {
         introduced.extend(issued);
     }
     out
+}
+
+/// Figure 1 on the corpus itself.
+pub fn corpus_tally(corpus: &Corpus) -> Tally {
+    let mut tally = Tally::default();
+    for s in &corpus.sessions {
+        let messages: Vec<Message<'_>> =
+            s.frames.iter().map(|f| (f.role == Role::Reply, corpus.bytes(s, f))).collect();
+        tally.add(&check(&messages));
+    }
+    tally
+}
+
+/// Figure 1 on `n` generated sessions (expected replies included, as they introduce the ids).
+pub fn generated_tally(model: &Compiled, flow: bool, n: u64, seed: u64) -> Tally {
+    let options = GenOptions { flow, replies: true, ..GenOptions::default() };
+    let mut generator = Generator::new(model, options).expect("options");
+    let mut tally = Tally::default();
+    for i in 0..n {
+        let trace = generator.trace(seed, i);
+        let messages: Vec<Message<'_>> =
+            trace.messages.iter().map(|m| (m.is_reply(), m.bytes.as_slice())).collect();
+        tally.add(&check(&messages));
+    }
+    tally
 }
