@@ -255,7 +255,9 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
 fn first_line(tokens: &[Token], template: &[u32]) -> String {
     let mut out = String::new();
     for &s in template {
-        let Some(t) = tokens.get((s - crate::symbol::FIRST_TOKEN) as usize) else { continue };
+        let Some(t) = s.checked_sub(crate::symbol::FIRST_TOKEN).and_then(|i| tokens.get(i as usize)) else {
+            continue;
+        };
         if let Token::Lit(b) = t
             && let Some(i) = b.iter().position(|&c| c == b'\n' || c == b'\r')
         {
@@ -279,7 +281,10 @@ pub fn flow_summary(model: &Model) -> FlowSummary {
         let (tokens, template) = side_of(k);
         match slot_anchors(tokens, template).get(k.slot as usize) {
             Some((class, Some(a))) => {
-                let anchor = tokens.get((a - crate::symbol::FIRST_TOKEN) as usize).map(Token::display);
+                let anchor = a
+                    .checked_sub(crate::symbol::FIRST_TOKEN)
+                    .and_then(|i| tokens.get(i as usize))
+                    .map(Token::display);
                 format!("{{{class}}} after `{}`", anchor.unwrap_or_default().trim())
             }
             Some((class, None)) => format!("{{{class}}}"),

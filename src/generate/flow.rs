@@ -284,7 +284,7 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
         flow: &mut Vec<SlotFlow>,
     ) {
         let table = &self.model.flow;
-        for j in 0..values.len() {
+        for j in 0..values.len().min(keys.len()) {
             let precise = template.filter(|&t| table.uses_precise(side, t));
             let sources: Vec<(Source, f64)> = match precise {
                 Some(t) => table
@@ -429,6 +429,19 @@ pub fn apply<R: Rng + ?Sized>(model: &Compiled, options: &FlowOptions, walk: &mu
             step.replies.push(ReplyStep { template: r, values, flow });
         }
     }
+}
+
+/// Trace numbers (1-based) of requests and their shown replies, given how many replies each
+/// request shows: per request, its number and its replies' numbers.
+pub(crate) fn message_numbers(shown_replies: impl Iterator<Item = usize>) -> Vec<(usize, Vec<usize>)> {
+    let mut next = 1;
+    shown_replies
+        .map(|replies| {
+            let own = next;
+            next += 1 + replies;
+            (own, (own + 1..own + 1 + replies).collect())
+        })
+        .collect()
 }
 
 /// Trace annotations of a message's value flow. `number` gives the trace number of a message,

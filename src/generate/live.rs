@@ -155,20 +155,7 @@ impl<'m> LiveSession<'m> {
     /// The steps sent so far as a trace, each followed by the replies observed (marked
     /// `reply`; not part of the wire bytes). Copies show as `flow:S<N` marks.
     pub fn trace(&self) -> Trace {
-        let mut numbers: Vec<(usize, Vec<usize>)> = Vec::new();
-        let mut n = 0;
-        for r in self.replies.iter() {
-            n += 1;
-            let own = n;
-            let rs = r
-                .iter()
-                .map(|_| {
-                    n += 1;
-                    n
-                })
-                .collect();
-            numbers.push((own, rs));
-        }
+        let numbers = super::flow::message_numbers(self.replies.iter().map(Vec::len));
         let number = |m: MessageRef| {
             let (own, rs) = numbers.get(m.step as usize)?;
             match m.reply {

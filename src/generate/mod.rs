@@ -355,23 +355,8 @@ impl Walk {
     /// replies the model expects, marked `reply` (they are not part of the trace's wire bytes).
     /// Value flow shows in marks (see [`flow`]).
     pub fn render_trace(&self, model: &Compiled, replies: bool) -> Trace {
-        let mut numbers: Vec<(usize, Vec<usize>)> = Vec::with_capacity(self.steps.len());
-        let mut n = 0;
-        for s in &self.steps {
-            n += 1;
-            let own = n;
-            let rs = if replies {
-                (0..s.replies.len())
-                    .map(|_| {
-                        n += 1;
-                        n
-                    })
-                    .collect()
-            } else {
-                Vec::new()
-            };
-            numbers.push((own, rs));
-        }
+        let numbers =
+            flow::message_numbers(self.steps.iter().map(|s| if replies { s.replies.len() } else { 0 }));
         let number = |m: flow::MessageRef| {
             let (own, rs) = numbers.get(m.step as usize)?;
             match m.reply {

@@ -142,6 +142,12 @@ fn template_table(templates: &[Box<[u32]>]) -> HashTable<u32> {
     table
 }
 
+/// Runs of reply templates and a table drawing one of them or, as the last outcome, none.
+type RunTable = (Vec<Box<[u32]>>, AliasTable);
+
+/// Runs with their counts.
+type CountedRuns<'a> = Vec<(&'a [u32], u64)>;
+
 /// The reply side of a compiled model: vocabulary, templates, pools, and which replies answer
 /// each request template.
 #[derive(Debug, Clone, Default)]
@@ -155,9 +161,9 @@ pub struct ReplySide {
     template_slots: Vec<Vec<SlotRef>>,
     /// Per request template symbol (or BEGIN): the runs that answered it and a table drawing
     /// one of them or, as the last outcome, no reply.
-    runs: FxHashMap<u32, (Vec<Box<[u32]>>, AliasTable)>,
+    runs: FxHashMap<u32, RunTable>,
     /// The same per (request, next request or END).
-    runs_after: FxHashMap<(u32, u32), (Vec<Box<[u32]>>, AliasTable)>,
+    runs_after: FxHashMap<(u32, u32), RunTable>,
 }
 
 impl ReplySide {
@@ -175,19 +181,19 @@ impl ReplySide {
         } else {
             FxHashMap::default()
         };
-        let mut by_pair: std::collections::BTreeMap<(u32, u32), Vec<(&[u32], u64)>> = Default::default();
+        let mut by_pair: std::collections::BTreeMap<(u32, u32), CountedRuns<'_>> = Default::default();
         let mut by_request: std::collections::BTreeMap<u32, std::collections::BTreeMap<&[u32], u64>> =
             Default::default();
         for run in &r.runs {
             by_pair.entry((run.request, run.next)).or_default().push((&run.replies.0, run.count));
             *by_request.entry(run.request).or_default().entry(&run.replies.0).or_default() += run.count;
         }
-        let table = |list: Vec<(&[u32], u64)>, total: u64| {
+        let table = |list: CountedRuns<'_>, total: u64| -> RunTable {
             let answered: u64 = list.iter().map(|e| e.1).sum();
             let mut weights: Vec<f64> = list.iter().map(|e| e.1 as f64).collect();
             weights.push(total.saturating_sub(answered) as f64);
             let table = AliasTable::new(&weights);
-            (list.into_iter().map(|e| e.0.into()).collect::<Vec<Box<[u32]>>>(), table)
+            (list.into_iter().map(|e| e.0.into()).collect(), table)
         };
         let runs_after = by_pair
             .into_iter()

@@ -23,11 +23,11 @@
 //! message go to the lower ordinal. A row ([`FlowRow`]) counts, per (target, source, distance
 //! in messages), the occurrences credited under each reading; under each, an occurrence credits
 //! at most one source. The number of occurrences of a target is its template's count, which
-//! the model already holds. When a model is read, each target slot uses the reading that
-//! concentrates its credits more: the one whose likeliest *kind* of source (anchor key, so that
-//! templates differing only in other literals count as one) gets more credits (ties: oldest).
-//! Oldest suits values a session introduces once and reuses, newest echoes of values chosen
-//! just before.
+//! the model already holds. When a model is read, each target slot uses the reading whose
+//! accepted couplings (below) cover more of its occurrences (ties: oldest): both readings credit
+//! the same occurrences, but credits spread thin over many sources fall below the thresholds.
+//! Oldest suits values a session introduces once and reuses (it credits the one introducer),
+//! newest the echo of a value chosen just before.
 //!
 //! Cost: per message, one pass over the keys active in the window (at most window × slots per
 //! message, in practice the few templates of a window), with value hashes, no bytes. Learning
@@ -41,7 +41,8 @@
 //! occurrences, and at least [`MIN_LIFT`] times as often as chance would. Chance is the
 //! probability that two independent draws from the two slots' value pools are equal,
 //! Σ p_target(v)·p_source(v), estimated from the pools' bottom-k samples (scaled up by the share
-//! of the hash space both samples cover).
+//! of the hash space both samples cover, and erring towards chance where a full pool's sample
+//! misses its frequent values; see [`chance_of_equal`]).
 
 use std::collections::BTreeMap;
 
@@ -333,7 +334,7 @@ pub(crate) fn slot_anchors(tokens: &[Token], template: &[u32]) -> Vec<(String, O
     let mut anchor = None;
     let mut out = Vec::new();
     for &s in template {
-        match tokens.get((s - FIRST_TOKEN) as usize) {
+        match s.checked_sub(FIRST_TOKEN).and_then(|i| tokens.get(i as usize)) {
             Some(t @ Token::Lit(_)) if t.is_anchor() => anchor = Some(s),
             Some(Token::Slot(c)) => out.push((c.clone(), anchor)),
             _ => {}
@@ -362,6 +363,12 @@ pub(crate) fn pool_for<'p>(pools: &'p [Pool], class: &str, anchor: Option<u32>) 
 
 /// Probability that independent draws from two pools are equal, Σ p_a(v)·p_b(v), estimated
 /// from their bottom-k samples (see the module documentation). `cap` is the pool cap.
+///
+/// A bottom-k sample keeps values by hash, not by frequency, so a full pool may miss a value
+/// that makes up most of its occurrences (status 200 among response sizes). The share of
+/// occurrences the sample cannot account for (its `seen` minus the kept counts scaled by the
+/// share of the hash space the sample covers) is therefore treated as one value common to both
+/// pools: the estimate adds the product of the two missing shares, erring towards chance.
 pub fn chance_of_equal(a: &Pool, b: &Pool, cap: usize) -> f64 {
     if a.seen == 0 || b.seen == 0 {
         return 0.0;
@@ -372,6 +379,11 @@ pub fn chance_of_equal(a: &Pool, b: &Pool, cap: usize) -> f64 {
         } else {
             u64::MAX
         }
+    };
+    let scale = |t: u64| if t < u64::MAX { u64::MAX as f64 / t.max(1) as f64 } else { 1.0 };
+    let missing = |p: &Pool| {
+        let kept: u64 = p.values.iter().map(|v| v.count).sum();
+        (1.0 - kept as f64 * scale(threshold(p)) / p.seen as f64).clamp(0.0, 1.0)
     };
     let limit = threshold(a).min(threshold(b));
     let counts: FxHashMap<&[u8], u64> = b.values.iter().map(|v| (v.value.as_slice(), v.count)).collect();
@@ -384,10 +396,7 @@ pub fn chance_of_equal(a: &Pool, b: &Pool, cap: usize) -> f64 {
             sum += (v.count as f64 / a.seen as f64) * (c as f64 / b.seen as f64);
         }
     }
-    if limit < u64::MAX {
-        sum *= u64::MAX as f64 / limit.max(1) as f64;
-    }
-    sum.min(1.0)
+    (sum * scale(limit) + missing(a) * missing(b)).min(1.0)
 }
 
 /// Which holder of a value an occurrence is credited to (see the module documentation).
@@ -429,6 +438,14 @@ pub struct Coupling {
     pub accepted: bool,
 }
 
+/// Credits of one source under one reading: in total, and (credits, distance) of the distance
+/// with the most.
+#[derive(Debug, Clone, Copy, Default)]
+struct Credits {
+    total: u64,
+    best: (u64, u32),
+}
+
 /// How many times each template of a side occurred (index `i` is symbol `FIRST_TEMPLATE + i`).
 pub(crate) fn occurrences(model: &Model, side: Side) -> Vec<u64> {
     match side {
@@ -451,19 +468,6 @@ pub fn couplings(model: &Model) -> Vec<Coupling> {
         let (class, anchor) = anchors.get(k.slot as usize)?;
         pool_for(pools, class, *anchor)
     };
-    let kind_of = |k: &SlotKey| -> (Side, String, Option<Vec<u8>>) {
-        let (tokens, template) = match k.side {
-            Side::Request => (&model.tokens, model.template(k.template).unwrap_or_default()),
-            Side::Reply => (&model.replies.tokens, model.replies.template(k.template).unwrap_or_default()),
-        };
-        let anchors = slot_anchors(tokens, template);
-        let (class, anchor) = anchors.get(k.slot as usize).cloned().unwrap_or_default();
-        let bytes = anchor.and_then(|a| match tokens.get((a - FIRST_TOKEN) as usize) {
-            Some(Token::Lit(b)) => Some(b.clone()),
-            _ => None,
-        });
-        (k.side, class, bytes)
-    };
     let mut out = Vec::new();
     let rows = &model.flow;
     let mut i = 0;
@@ -476,48 +480,62 @@ pub fn couplings(model: &Model) -> Vec<Coupling> {
             .get((target.template - FIRST_TEMPLATE) as usize)
             .copied()
             .unwrap_or(0);
-        // Per source: total and the distance with the most credits, under each reading.
-        let mut per_source: BTreeMap<SlotKey, [(u64, (u64, u32)); 2]> = BTreeMap::new();
+        // Per source, under each reading: total credits, and the distance with the most.
+        let mut per_source: BTreeMap<SlotKey, [Credits; 2]> = BTreeMap::new();
         for r in group {
             let e = per_source.entry(r.source).or_default();
             for (slot, c) in [(0, r.oldest), (1, r.newest)] {
-                e[slot].0 += c;
-                if c > e[slot].1.0 {
-                    e[slot].1 = (c, r.distance);
+                e[slot].total += c;
+                if c > e[slot].best.0 {
+                    e[slot].best = (c, r.distance);
                 }
             }
         }
-        // Concentration of a reading: the most credits any one kind of source slot (anchor key)
-        // gets, so that templates differing only in other literals count as one source.
-        let top = |slot: usize| {
-            let mut by_kind: BTreeMap<(Side, String, Option<Vec<u8>>), u64> = BTreeMap::new();
-            for (source, e) in &per_source {
-                *by_kind.entry(kind_of(source)).or_default() += e[slot].0;
-            }
-            by_kind.into_values().max().unwrap_or(0)
+        let occurrences = occurrences.max(1);
+        let figures: Vec<(&SlotKey, &[Credits; 2], f64)> = per_source
+            .iter()
+            .map(|(source, e)| {
+                let chance = match (pool_of(&target), pool_of(source)) {
+                    (Some(a), Some(b)) => chance_of_equal(a, b, cap),
+                    _ => 0.0,
+                };
+                (source, e, chance)
+            })
+            .collect();
+        let judge = |copies: u64, chance: f64| {
+            let occurrences = occurrences.max(copies);
+            let rate = copies as f64 / occurrences as f64;
+            let lift = if chance > 0.0 { rate / chance } else { f64::INFINITY };
+            let accepted = copies >= MIN_COPIES && rate >= MIN_RATE && lift >= MIN_LIFT;
+            (occurrences, rate, lift, accepted)
         };
-        let (reading, slot) = if top(1) > top(0) { (Reading::Newest, 1) } else { (Reading::Oldest, 0) };
-        for (source, e) in &per_source {
-            let (copies, (_, distance)) = e[slot];
+        // The share of occurrences the accepted sources of a reading cover: what generation
+        // will copy. Both readings credit the same occurrences; they differ in how the credits
+        // spread, and credits spread thin over many sources fall below the thresholds.
+        let coverage = |slot: usize| -> f64 {
+            figures
+                .iter()
+                .map(|(_, c, chance)| judge(c[slot].total, *chance))
+                .filter(|j| j.3)
+                .map(|j| j.1)
+                .sum()
+        };
+        let (reading, slot) =
+            if coverage(1) > coverage(0) { (Reading::Newest, 1) } else { (Reading::Oldest, 0) };
+        for (source, c, chance) in &figures {
+            let (copies, distance) = (c[slot].total, c[slot].best.1);
             if copies == 0 {
                 continue;
             }
-            let occurrences = occurrences.max(copies);
-            let rate = copies as f64 / occurrences.max(1) as f64;
-            let chance = match (pool_of(&target), pool_of(source)) {
-                (Some(a), Some(b)) => chance_of_equal(a, b, cap),
-                _ => 0.0,
-            };
-            let lift = if chance > 0.0 { rate / chance } else { f64::INFINITY };
-            let accepted = copies >= MIN_COPIES && rate >= MIN_RATE && lift >= MIN_LIFT;
+            let (occurrences, rate, lift, accepted) = judge(copies, *chance);
             out.push(Coupling {
                 target,
-                source: *source,
+                source: **source,
                 reading,
                 copies,
                 occurrences,
                 rate,
-                chance,
+                chance: *chance,
                 lift,
                 distance,
                 accepted,
@@ -584,24 +602,24 @@ impl FlowTable {
     /// The accepted couplings of `model` (see [`couplings`]).
     pub fn new(model: &Model) -> FlowTable {
         let mut table = FlowTable { window: model.settings.flow_window, ..FlowTable::default() };
-        let sides: [(Side, &[Token], Vec<&[u32]>); 2] = [
-            (Side::Request, &model.tokens, model.templates.iter().map(|t| t.0.as_slice()).collect()),
-            (
-                Side::Reply,
-                &model.replies.tokens,
-                model.replies.templates.iter().map(|t| t.tokens.0.as_slice()).collect(),
-            ),
-        ];
-        for (side, tokens, templates) in &sides {
+        for side in [Side::Request, Side::Reply] {
+            let (tokens, templates): (&[Token], Vec<&[u32]>) = match side {
+                Side::Request => (&model.tokens, model.templates.iter().map(|t| t.0.as_slice()).collect()),
+                Side::Reply => (
+                    &model.replies.tokens,
+                    model.replies.templates.iter().map(|t| t.tokens.0.as_slice()).collect(),
+                ),
+            };
             for t in templates {
                 let ids: Box<[u32]> = slot_anchors(tokens, t)
                     .iter()
                     .map(|(class, anchor)| {
-                        let bytes = anchor.and_then(|a| match tokens.get((a - FIRST_TOKEN) as usize) {
-                            Some(Token::Lit(b)) => Some(b.as_slice()),
-                            _ => None,
-                        });
-                        table.intern_anchor(anchor_hash(*side, class, bytes))
+                        let bytes =
+                            anchor.and_then(|a| match tokens.get(a.checked_sub(FIRST_TOKEN)? as usize) {
+                                Some(Token::Lit(b)) => Some(b.as_slice()),
+                                _ => None,
+                            });
+                        table.intern_anchor(anchor_hash(side, class, bytes))
                     })
                     .collect();
                 table.slot_anchors[side.index()].push(ids);
@@ -783,5 +801,10 @@ mod tests {
         let a = pool(&[(b"1", 5), (b"2", 5)]);
         assert!((chance_of_equal(&a, &a, 256) - 0.5).abs() < 1e-12);
         assert_eq!(chance_of_equal(&a, &pool(&[(b"3", 4)]), 256), 0.0);
+        // A full pool (cap 2) whose sample holds 2 of 1000 occurrences of two rare values:
+        // most occurrences are unaccounted for, so chance is high, not 0.
+        let mut full = pool(&[(b"x", 1), (b"y", 1)]);
+        full.seen = 1000;
+        assert!(chance_of_equal(&full, &full, 2) > 0.9);
     }
 }
