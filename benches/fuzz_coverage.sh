@@ -58,7 +58,7 @@ files=$(ls "$work/training" | wc -l)
 n=$files
 while :; do
     rm -rf "$work/seeds"
-    ./target/release/tracewalk seed "$work/shop.model" -n "$n" -o "$work/seeds" --mode "${SEED_MODE:-rare}" 2>/dev/null
+    ./target/release/tracewalk seed "$work/shop.model" -n "$n" -o "$work/seeds" --mode "${SEED_MODE:-plausible}" 2>/dev/null
     have=$(ls "$work/seeds" | wc -l)
     [ "$have" -ge "$files" ] && break
     n=$((n + files - have))

@@ -126,6 +126,34 @@ pub struct Summary {
     pub flow: FlowSummary,
 }
 
+/// A template as `show` prints it: the template text, except that an HTTP template is cut to its
+/// start line, the number of header fields, the body and the template's number, since templates
+/// differing only in header values share the rest (`GET /v1/x HTTP/1.1 ⟨4 fields⟩ {…} #12`).
+pub fn template_label(model: &Model, symbol: u32) -> String {
+    let text = model.template_text(symbol);
+    if model.settings.read.format != Some(crate::read::Format::Http) || model.template(symbol).is_none() {
+        return text;
+    }
+    let (head, body) = match text.find("{body") {
+        Some(i) => {
+            let rest = &text[i..];
+            let after = rest.find('}').map_or("", |j| &rest[j + 1..]);
+            (&text[..i], after)
+        }
+        None => (text.as_str(), ""),
+    };
+    let mut lines = head.split("\\r\\n").filter(|l| !l.is_empty());
+    let start = lines.next().unwrap_or("");
+    let fields = lines.count();
+    let mut label = format!("{start} ⟨{fields} fields⟩");
+    if !body.is_empty() {
+        label.push(' ');
+        label.push_str(body);
+    }
+    label.push_str(&format!(" #{}", symbol - crate::symbol::FIRST_TEMPLATE + 1));
+    label
+}
+
 fn chain_summary(grams: &Grams, symbols: u32, config: &ChainConfig) -> ChainSummary {
     let chain = Chain::build(grams, symbols, config);
     let fit = ChainConfig { parts: Parts::Fit, ..*config };
@@ -165,7 +193,7 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
         .rows()
         .filter(|(g, _)| g[0] != END)
         .map(|(g, c)| Successor {
-            text: model.template_text(g[0]),
+            text: template_label(model, g[0]),
             count: c[0] + c[1],
             probability: (c[0] + c[1]) as f64 / total.max(1) as f64,
         })
@@ -192,7 +220,7 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
                 .successors(&ctx)
                 .into_iter()
                 .map(|(s, n)| Successor {
-                    text: model.template_text(s),
+                    text: template_label(model, s),
                     count: n,
                     probability: chain.prob(&ctx, s),
                 })
@@ -200,7 +228,7 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
             successors.sort_by(|a, b| b.probability.total_cmp(&a.probability));
             successors.truncate(5);
             ContextRow {
-                context: ctx.iter().filter(|&&s| s != BEGIN).map(|&s| model.template_text(s)).collect(),
+                context: ctx.iter().filter(|&&s| s != BEGIN).map(|&s| template_label(model, s)).collect(),
                 count,
                 successors,
             }
@@ -422,7 +450,7 @@ pub fn dot(model: &Model) -> String {
         let label = match s {
             BEGIN => "begin".to_string(),
             END => "end".to_string(),
-            _ => model.template_text(s),
+            _ => template_label(model, s),
         };
         out.push_str(&format!("  n{s} [label={}];\n", quote(&label)));
     }
