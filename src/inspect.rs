@@ -98,7 +98,8 @@ pub struct FlowSummary {
     /// Candidate couplings (pairs with at least one copy) and those kept as real.
     pub candidates: usize,
     pub kept: usize,
-    /// Kept couplings, most copies first (all of them, whatever `top`).
+    /// Kept couplings, those of request slots first, then most copies first (all of them,
+    /// whatever `top`).
     pub couplings: Vec<CouplingRow>,
 }
 
@@ -134,13 +135,29 @@ pub fn template_label(model: &Model, symbol: u32) -> String {
     if model.settings.read.format != Some(crate::read::Format::Http) || model.template(symbol).is_none() {
         return text;
     }
+    http_label(&text, &format!("#{}", symbol - crate::symbol::FIRST_TEMPLATE + 1))
+}
+
+/// [`template_label`] for a reply template; HTTP reply templates are numbered `#r1`, `#r2`, ….
+pub fn reply_template_label(model: &Model, symbol: u32) -> String {
+    let text = model.replies.template_text(symbol);
+    if model.settings.read.format != Some(crate::read::Format::Http)
+        || model.replies.template(symbol).is_none()
+    {
+        return text;
+    }
+    http_label(&text, &format!("#r{}", symbol - crate::symbol::FIRST_TEMPLATE + 1))
+}
+
+/// An HTTP template's text cut to its start line, field count and body, then `number`.
+fn http_label(text: &str, number: &str) -> String {
     let (head, body) = match text.find("{body") {
         Some(i) => {
             let rest = &text[i..];
             let after = rest.find('}').map_or("", |j| &rest[j + 1..]);
             (&text[..i], after)
         }
-        None => (text.as_str(), ""),
+        None => (text, ""),
     };
     let mut lines = head.split("\\r\\n").filter(|l| !l.is_empty());
     let start = lines.next().unwrap_or("");
@@ -150,7 +167,8 @@ pub fn template_label(model: &Model, symbol: u32) -> String {
         label.push(' ');
         label.push_str(body);
     }
-    label.push_str(&format!(" #{}", symbol - crate::symbol::FIRST_TEMPLATE + 1));
+    label.push(' ');
+    label.push_str(number);
     label
 }
 
@@ -297,6 +315,21 @@ fn first_line(tokens: &[Token], template: &[u32]) -> String {
     out
 }
 
+/// A template for the value-flow list: HTTP templates as [`template_label`] gives them, others
+/// as their first line.
+fn flow_label(model: &Model, side: crate::model::flow::Side, symbol: u32) -> String {
+    use crate::model::flow::Side;
+    let http = model.settings.read.format == Some(crate::read::Format::Http);
+    match (side, http) {
+        (Side::Request, true) => template_label(model, symbol),
+        (Side::Reply, true) => reply_template_label(model, symbol),
+        (Side::Request, false) => first_line(&model.tokens, model.template(symbol).unwrap_or_default()),
+        (Side::Reply, false) => {
+            first_line(&model.replies.tokens, model.replies.template(symbol).unwrap_or_default())
+        }
+    }
+}
+
 /// The value-flow part of [`summarize`].
 pub fn flow_summary(model: &Model) -> FlowSummary {
     use crate::model::flow::{Side, SlotKey, couplings, slot_anchors};
@@ -337,15 +370,12 @@ pub fn flow_summary(model: &Model) -> FlowSummary {
         .iter()
         .filter(|c| c.accepted)
         .map(|c| {
-            let (tt, t) = side_of(&c.target);
-            let (st, s) = side_of(&c.source);
             let source_answers = match c.source.side {
-                Side::Reply => answers.get(&c.source.template).map(|&(_, q)| model.template_text(q)),
+                Side::Reply => answers.get(&c.source.template).map(|&(_, q)| flow_label(model, Side::Request, q)),
                 Side::Request => None,
-            }
-            .map(|text| text.split("\\r\\n").next().unwrap_or("").split("\\n").next().unwrap_or("").to_string());
-            let target_template = first_line(tt, t);
-            let source_template = first_line(st, s);
+            };
+            let target_template = flow_label(model, c.target.side, c.target.template);
+            let source_template = flow_label(model, c.source.side, c.source.template);
             let source_words = match (&c.source.side, &source_answers) {
                 (Side::Reply, Some(q)) => format!("the reply `{source_template}` to `{q}`"),
                 (Side::Reply, None) => format!("the reply `{source_template}`"),
@@ -389,7 +419,13 @@ pub fn flow_summary(model: &Model) -> FlowSummary {
             }
         })
         .collect();
-    rows.sort_by(|a, b| b.copies.cmp(&a.copies).then_with(|| a.sentence.cmp(&b.sentence)));
+    // Requests first: their couplings are what generated traffic reproduces.
+    rows.sort_by(|a, b| {
+        (a.target_side != "request")
+            .cmp(&(b.target_side != "request"))
+            .then(b.copies.cmp(&a.copies))
+            .then_with(|| a.sentence.cmp(&b.sentence))
+    });
     FlowSummary {
         window: model.settings.flow_window,
         reply_templates: model.replies.templates.len(),
