@@ -29,13 +29,14 @@
 //! Against a target that replies, [`crate::generate::live::LiveSession`] resolves the same
 //! copies with the values the target actually returned.
 
+use std::borrow::Cow;
 use std::collections::VecDeque;
 
 use rand::{Rng, RngExt};
 use rustc_hash::FxHashMap;
 
 use super::{Step, Walk};
-use crate::model::flow::{Side, SlotKey};
+use crate::model::flow::{Side, SlotKey, SlotKeys};
 use crate::model::{Compiled, SlotRef};
 use crate::symbol::NOVEL;
 use crate::token::Token;
@@ -101,16 +102,20 @@ impl ReplyStep {
 struct Entry {
     pos: u32,
     class: Option<u32>,
-    value: Vec<u8>,
+    /// Range of the value in [`Memory::bytes`].
+    start: usize,
+    end: usize,
     from: MessageRef,
 }
 
 /// Slot values of the recent messages of one session, for copying. Every message is recorded
-/// (slotless ones too) so that distances count messages as learning did.
+/// (slotless ones too) so that distances count messages as learning did. Values are kept in
+/// one buffer for the session (sessions are bounded by the message limit).
 #[derive(Debug, Clone)]
 pub struct Memory {
     window: u32,
     next_pos: u32,
+    bytes: Vec<u8>,
     entries: VecDeque<Entry>,
     /// Absolute index of `entries[0]`.
     first: u64,
@@ -133,6 +138,7 @@ impl Memory {
         Memory {
             window: window.max(1),
             next_pos: 0,
+            bytes: Vec::new(),
             entries: VecDeque::new(),
             first: 0,
             by_key: FxHashMap::default(),
@@ -148,14 +154,16 @@ impl Memory {
         &mut self,
         from: MessageRef,
         template: Option<(Side, u32)>,
-        slots: &[(Option<u32>, Option<u32>)],
+        slots: &[SlotKeys],
         values: &[Vec<u8>],
     ) {
         let pos = self.next_pos;
         self.next_pos += 1;
         for (j, (value, &(anchor, class))) in values.iter().zip(slots).enumerate() {
             let abs = self.first + self.entries.len() as u64;
-            self.entries.push_back(Entry { pos, class, value: value.clone(), from });
+            let start = self.bytes.len();
+            self.bytes.extend_from_slice(value);
+            self.entries.push_back(Entry { pos, class, start, end: self.bytes.len(), from });
             if let Some((side, t)) = template {
                 self.by_key.insert(SlotKey { side, template: t, slot: j as u32 }, abs);
             }
@@ -172,9 +180,22 @@ impl Memory {
         }
     }
 
+    /// Empties the memory for a new session looking back `window` messages, keeping its
+    /// allocations.
+    pub fn reset(&mut self, window: u32) {
+        self.window = window.max(1);
+        self.next_pos = 0;
+        self.bytes.clear();
+        self.first += self.entries.len() as u64;
+        self.entries.clear();
+        self.by_key.clear();
+        self.by_anchor.clear();
+        self.by_anchor_unkeyed.clear();
+    }
+
     fn at(&self, abs: u64) -> Option<Found<'_>> {
         let e = self.entries.get(abs.checked_sub(self.first)? as usize)?;
-        Some(Found { value: &e.value, from: e.from })
+        Some(Found { value: &self.bytes[e.start..e.end], from: e.from })
     }
 
     /// The latest value of a template slot within the window.
@@ -206,11 +227,12 @@ impl Memory {
         let mut same = Vec::new();
         let mut any = Vec::new();
         for e in &self.entries {
-            if e.value == not || seen.contains(&e.value.as_slice()) {
+            let value = &self.bytes[e.start..e.end];
+            if value == not || seen.contains(&value) {
                 continue;
             }
-            seen.push(&e.value);
-            let f = Found { value: &e.value, from: e.from };
+            seen.push(value);
+            let f = Found { value, from: e.from };
             if class.is_some() && e.class == class {
                 same.push(f);
             }
@@ -232,9 +254,19 @@ pub struct FlowOptions {
     pub break_rate: f64,
 }
 
-/// Anchor key id and class (index into the tokenizer's classes) of each slot of a request or
-/// reply token sequence.
-pub(crate) fn slot_keys(model: &Compiled, side: Side, slots: &[SlotRef]) -> Vec<(Option<u32>, Option<u32>)> {
+/// Anchor key id and class id of each slot of a request or reply token sequence: precomputed
+/// for templates the model knows, looked up for others.
+pub(crate) fn slot_keys<'m>(
+    model: &'m Compiled,
+    side: Side,
+    template: Option<u32>,
+    slots: &[SlotRef],
+) -> Cow<'m, [SlotKeys]> {
+    if let Some(keys) = template.and_then(|t| model.flow.template_keys(side, t))
+        && keys.len() == slots.len()
+    {
+        return Cow::Borrowed(keys);
+    }
     let vocab = match side {
         Side::Request => &model.vocab,
         Side::Reply => &model.replies.vocab,
@@ -250,10 +282,32 @@ pub(crate) fn slot_keys(model: &Compiled, side: Side, slots: &[SlotRef]) -> Vec<
                 Some(Token::Lit(b)) => Some(b.as_slice()),
                 _ => None,
             };
-            let class_index = model.tokenizer.classes().iter().position(|c| c == class).map(|i| i as u32);
-            (model.flow.anchor_id(side, class, anchor), class_index)
+            model.flow.keys_of(side, class, anchor)
         })
         .collect()
+}
+
+/// The learned sources of one slot, highest rate first.
+#[derive(Clone, Copy)]
+enum Sources<'a> {
+    Precise(&'a [crate::model::flow::Edge]),
+    Anchor(&'a [crate::model::flow::AnchorEdge]),
+}
+
+impl Sources<'_> {
+    fn len(&self) -> usize {
+        match self {
+            Sources::Precise(e) => e.len(),
+            Sources::Anchor(e) => e.len(),
+        }
+    }
+
+    fn get(&self, i: usize) -> (Source, f64) {
+        match self {
+            Sources::Precise(e) => (Source::Slot { key: e[i].source, anchor: e[i].source_anchor }, e[i].rate),
+            Sources::Anchor(e) => (Source::Anchor(e[i].source_anchor), e[i].rate),
+        }
+    }
 }
 
 /// The template a step is known by for value flow: its symbol, or for a novel-message step
@@ -268,7 +322,7 @@ fn known_template(model: &Compiled, step: &Step) -> Option<u32> {
 struct Pass<'a, 'm, R: Rng + ?Sized> {
     model: &'m Compiled,
     options: &'a FlowOptions,
-    memory: Memory,
+    memory: &'a mut Memory,
     rng: &'a mut R,
 }
 
@@ -278,7 +332,7 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
         &mut self,
         side: Side,
         template: Option<u32>,
-        keys: &[(Option<u32>, Option<u32>)],
+        keys: &[SlotKeys],
         values: &mut [Vec<u8>],
         fresh: &dyn Fn(usize, &mut R) -> Vec<u8>,
         flow: &mut Vec<SlotFlow>,
@@ -286,28 +340,18 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
         let table = &self.model.flow;
         for j in 0..values.len().min(keys.len()) {
             let precise = template.filter(|&t| table.uses_precise(side, t));
-            let sources: Vec<(Source, f64)> = match precise {
-                Some(t) => table
-                    .edges(SlotKey { side, template: t, slot: j as u32 })
-                    .iter()
-                    .map(|e| (Source::Slot { key: e.source, anchor: e.source_anchor }, e.rate))
-                    .collect(),
-                None => match keys[j].0 {
-                    Some(a) => table
-                        .anchor_edges(a)
-                        .iter()
-                        .map(|e| (Source::Anchor(e.source_anchor), e.rate))
-                        .collect(),
-                    None => Vec::new(),
-                },
+            let sources = match (precise, keys[j].0) {
+                (Some(t), _) => Sources::Precise(table.edges(SlotKey { side, template: t, slot: j as u32 })),
+                (None, Some(a)) => Sources::Anchor(table.anchor_edges(a)),
+                (None, None) => continue,
             };
-            if sources.is_empty() {
+            if sources.len() == 0 {
                 continue;
             }
             let u = self.rng.random::<f64>();
             let mut acc = 0.0;
-            let Some(drawn) = sources.iter().position(|e| {
-                acc += e.1;
+            let Some(drawn) = (0..sources.len()).position(|i| {
+                acc += sources.get(i).1;
                 u < acc
             }) else {
                 continue;
@@ -315,21 +359,19 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
             // The drawn source, else the others by rate, else the latest value of the drawn
             // source's kind (its anchor key) from any message.
             let order = std::iter::once(drawn).chain((0..sources.len()).filter(|&i| i != drawn));
-            let kind = match sources[drawn].0 {
+            let kind = match sources.get(drawn).0 {
                 Source::Slot { anchor, .. } if anchor != u32::MAX => Some(Source::Anchor(anchor)),
                 _ => None,
             };
-            let Some((source, found)) = order
-                .map(|i| sources[i].0)
-                .chain(kind)
-                .find_map(|s| self.memory.find(s).map(|f| (s, (f.value.to_vec(), f.from))))
+            let Some((source, found)) =
+                order.map(|i| sources.get(i).0).chain(kind).find_map(|s| self.memory.find(s).map(|f| (s, f)))
             else {
                 continue;
             };
-            let (value, from) = found;
+            let (value, from) = (found.value, found.from);
             let slot = j as u32;
             if self.options.break_rate > 0.0 && self.rng.random::<f64>() < self.options.break_rate {
-                let others = self.memory.others(keys[j].1, &value);
+                let others = self.memory.others(keys[j].1, value);
                 if !others.is_empty() && self.rng.random::<bool>() {
                     let pick = others[self.rng.random_range(0..others.len())];
                     values[j] = pick.value.to_vec();
@@ -342,7 +384,7 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
                 } else {
                     let mut v = fresh(j, self.rng);
                     for _ in 0..8 {
-                        if v != value {
+                        if v != *value {
                             break;
                         }
                         v = fresh(j, self.rng);
@@ -352,7 +394,8 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
                 }
                 continue;
             }
-            values[j] = value;
+            values[j].clear();
+            values[j].extend_from_slice(value);
             flow.push(SlotFlow { slot, action: FlowAction::Copied, source, from: Some(from) });
         }
     }
@@ -362,13 +405,26 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
 /// coupled slots and draws the expected replies. Steps kept as raw bytes are recorded as
 /// messages without slots. Replaces any flow or replies the steps held.
 pub fn apply<R: Rng + ?Sized>(model: &Compiled, options: &FlowOptions, walk: &mut Walk, rng: &mut R) {
+    apply_with(model, options, walk, rng, &mut Memory::new(model.flow.window()));
+}
+
+/// [`apply`] with a memory to reuse (it is cleared first), sparing its allocations when many
+/// walks are generated.
+pub fn apply_with<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &FlowOptions,
+    walk: &mut Walk,
+    rng: &mut R,
+    memory: &mut Memory,
+) {
     let copy = options.copy && !model.flow.is_empty();
     let replies = (options.replies || copy) && !model.replies.is_empty();
     if !copy && !replies {
         return;
     }
     let options = FlowOptions { copy, replies, ..*options };
-    let mut pass = Pass { model, options: &options, memory: Memory::new(model.flow.window()), rng };
+    memory.reset(model.flow.window());
+    let mut pass = Pass { model, options: &options, memory, rng };
     // The template of the request after each step (END after the last of an ended walk): the
     // replies drawn between two requests depend on both.
     let nexts: Vec<Option<u32>> = (0..walk.steps.len())
@@ -385,11 +441,15 @@ pub fn apply<R: Rng + ?Sized>(model: &Compiled, options: &FlowOptions, walk: &mu
         if step.is_opaque() {
             pass.memory.record(from, None, &[], &[]);
         } else {
+            let owned;
             let slots = match template {
-                Some(t) => model.template_slots(t).to_vec(),
-                None => model.slots_of(&step.tokens),
+                Some(t) => model.template_slots(t),
+                None => {
+                    owned = model.slots_of(&step.tokens);
+                    &owned
+                }
             };
-            let keys = slot_keys(model, Side::Request, &slots);
+            let keys = slot_keys(model, Side::Request, template, slots);
             if copy {
                 let fresh = |j: usize, rng: &mut R| match slots.get(j).and_then(|s| s.pool) {
                     Some(p) => model.sample_value(p, rng).to_vec(),
@@ -405,10 +465,10 @@ pub fn apply<R: Rng + ?Sized>(model: &Compiled, options: &FlowOptions, walk: &mu
             pass.memory.record(from, template.map(|t| (Side::Request, t)), &keys, &step.values);
         }
         let Some(t) = template.filter(|_| replies) else { continue };
-        let run = model.replies.sample_run(t, nexts[i], pass.rng).to_vec();
-        for (k, r) in run.into_iter().enumerate() {
-            let slots = model.replies.template_slots(r).to_vec();
-            let keys = slot_keys(model, Side::Reply, &slots);
+        let run = model.replies.sample_run(t, nexts[i], pass.rng);
+        for (k, &r) in run.iter().enumerate() {
+            let slots = model.replies.template_slots(r);
+            let keys = slot_keys(model, Side::Reply, Some(r), slots);
             let mut values: Vec<Vec<u8>> = slots
                 .iter()
                 .map(|s| match s.pool {

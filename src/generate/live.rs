@@ -102,7 +102,7 @@ impl<'m> LiveSession<'m> {
                 Some(t) => model.template_slots(t).to_vec(),
                 None => model.slots_of(&step.tokens),
             };
-            let keys = super::flow::slot_keys(model, Side::Request, &slots);
+            let keys = super::flow::slot_keys(model, Side::Request, template, &slots);
             self.memory.record(from, template.map(|t| (Side::Request, t)), &keys, &step.values);
         }
         Some(step.render(model))
@@ -132,8 +132,7 @@ impl<'m> LiveSession<'m> {
                         anchor = Some(self.scratch.bytes(piece));
                     }
                     PieceKind::Slot(c) => {
-                        let class = classes[c as usize].as_str();
-                        keys.push((model.flow.anchor_id(Side::Reply, class, anchor), Some(c as u32)));
+                        keys.push(model.flow.keys_of(Side::Reply, classes[c as usize].as_str(), anchor));
                         values.push(self.scratch.bytes(piece).to_vec());
                     }
                     _ => {}

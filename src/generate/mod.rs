@@ -169,6 +169,8 @@ pub struct Generator<'m> {
     model: &'m Compiled,
     options: GenOptions,
     prepared: Prepared,
+    /// Reused by value flow from walk to walk.
+    memory: flow::Memory,
 }
 
 fn check_rate(name: &str, r: f64) -> Result<(), GenError> {
@@ -223,7 +225,7 @@ impl<'m> Generator<'m> {
                 _ => Prepared::Nothing,
             }
         };
-        Ok(Generator { model, options, prepared })
+        Ok(Generator { model, options, prepared, memory: flow::Memory::new(model.flow.window()) })
     }
 
     pub fn model(&self) -> &'m Compiled {
@@ -295,7 +297,8 @@ impl<'m> Generator<'m> {
                 _ => walk::plausible(model, options, &mut rng),
             },
         };
-        flow::apply(model, &self.flow_options(), &mut walk, &mut rng);
+        let flow_options = self.flow_options();
+        flow::apply_with(model, &flow_options, &mut walk, &mut rng, &mut self.memory);
         if options.mode == Mode::Rare {
             rare::apply_hostile_walk(model, options, &mut walk, &mut rng);
         }

@@ -560,6 +560,10 @@ fn anchor_hash(side: Side, class: &str, anchor: Option<&[u8]>) -> u64 {
     value_hash(&bytes)
 }
 
+/// What generation needs to know of a slot: its anchor key id and class id, when the model
+/// has them.
+pub type SlotKeys = (Option<u32>, Option<u32>);
+
 /// An accepted coupling as generation uses it: the source and the share of the target's
 /// occurrences that copied it.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -591,8 +595,10 @@ pub struct FlowTable {
     window: u32,
     precise: FxHashMap<SlotKey, Box<[Edge]>>,
     anchor_ids: FxHashMap<u64, u32>,
-    /// Per side, per template index, the anchor key id of each slot.
-    slot_anchors: [Vec<Box<[u32]>>; 2],
+    /// Slot classes by name (any numbering, used to tell classes apart).
+    class_ids: FxHashMap<String, u32>,
+    /// Per side, per template index, the keys of each slot (see [`FlowTable::slot_keys`]).
+    slot_keys: [Vec<Box<[SlotKeys]>>; 2],
     /// Per side, per template index: seen often enough for precise couplings.
     precise_ok: [Vec<bool>; 2],
     by_anchor: Vec<Box<[AnchorEdge]>>,
@@ -611,7 +617,7 @@ impl FlowTable {
                 ),
             };
             for t in templates {
-                let ids: Box<[u32]> = slot_anchors(tokens, t)
+                let keys: Box<[SlotKeys]> = slot_anchors(tokens, t)
                     .iter()
                     .map(|(class, anchor)| {
                         let bytes =
@@ -619,10 +625,13 @@ impl FlowTable {
                                 Some(Token::Lit(b)) => Some(b.as_slice()),
                                 _ => None,
                             });
-                        table.intern_anchor(anchor_hash(side, class, bytes))
+                        let anchor = table.intern_anchor(anchor_hash(side, class, bytes));
+                        let next = table.class_ids.len() as u32;
+                        let class = *table.class_ids.entry(class.clone()).or_insert(next);
+                        (Some(anchor), Some(class))
                     })
                     .collect();
-                table.slot_anchors[side.index()].push(ids);
+                table.slot_keys[side.index()].push(keys);
             }
         }
         let mut precise: BTreeMap<SlotKey, Vec<Edge>> = BTreeMap::new();
@@ -655,8 +664,8 @@ impl FlowTable {
         let mut per_anchor = vec![0u64; table.anchor_ids.len()];
         for side in [Side::Request, Side::Reply] {
             let counts = occurrences(model, side);
-            for (t, ids) in table.slot_anchors[side.index()].iter().enumerate() {
-                for &a in ids.iter() {
+            for (t, keys) in table.slot_keys[side.index()].iter().enumerate() {
+                for a in keys.iter().filter_map(|k| k.0) {
                     per_anchor[a as usize] += counts.get(t).copied().unwrap_or(0);
                 }
             }
@@ -715,10 +724,17 @@ impl FlowTable {
 
     /// Anchor key id of a template slot.
     pub fn slot_anchor(&self, key: SlotKey) -> Option<u32> {
-        self.slot_anchors[key.side.index()]
-            .get(key.template.checked_sub(FIRST_TEMPLATE)? as usize)?
-            .get(key.slot as usize)
-            .copied()
+        self.template_keys(key.side, key.template)?.get(key.slot as usize)?.0
+    }
+
+    /// Anchor key id and class id of each slot of a template.
+    pub fn template_keys(&self, side: Side, template: u32) -> Option<&[SlotKeys]> {
+        self.slot_keys[side.index()].get(template.checked_sub(FIRST_TEMPLATE)? as usize).map(|k| &**k)
+    }
+
+    /// The keys of a slot of class `class` after the literal `anchor` (any message).
+    pub fn keys_of(&self, side: Side, class: &str, anchor: Option<&[u8]>) -> SlotKeys {
+        (self.anchor_id(side, class, anchor), self.class_ids.get(class).copied())
     }
 
     /// Anchor key id of a slot of class `class` after the literal `anchor`, if any template
