@@ -524,3 +524,60 @@ pub fn marks(flow: &[SlotFlow], number: &dyn Fn(MessageRef) -> Option<usize>) ->
         })
         .collect()
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn at(step: u32) -> MessageRef {
+        MessageRef { step, reply: None }
+    }
+
+    #[test]
+    fn memory_keeps_latest_values_within_the_window() {
+        let key = SlotKey { side: Side::Request, template: 5, slot: 0 };
+        let mut m = Memory::new(2);
+        m.record(at(0), Some((Side::Request, 5)), &[(Some(7), None)], &[b"a".to_vec()]);
+        m.record(at(1), Some((Side::Request, 5)), &[(Some(7), None)], &[b"b".to_vec()]);
+        assert_eq!(m.by_key(key).unwrap().value, b"b");
+        assert_eq!(m.by_key(key).unwrap().from, at(1));
+        // Two more messages without slots: `b` is three messages back, out of a window of 2.
+        m.record(at(2), None, &[], &[]);
+        assert!(m.by_key(key).is_some());
+        m.record(at(3), None, &[], &[]);
+        assert!(m.by_key(key).is_none());
+        m.reset(2);
+        assert!(m.by_anchor(7, false).is_none());
+    }
+
+    #[test]
+    fn slot_sources_fall_back_to_unknown_shapes_of_the_same_kind() {
+        let key = SlotKey { side: Side::Reply, template: 9, slot: 0 };
+        let mut m = Memory::new(8);
+        // A reply of a known template with anchor 3 is not an unknown shape…
+        m.record(at(0), Some((Side::Reply, 4)), &[(Some(3), None)], &[b"old".to_vec()]);
+        assert!(m.find(Source::Slot { key, anchor: 3 }).is_none());
+        assert_eq!(m.find(Source::Anchor(3)).unwrap().value, b"old");
+        // …a reply the model cannot place is.
+        m.record(at(1), None, &[(Some(3), None)], &[b"new".to_vec()]);
+        assert_eq!(m.find(Source::Slot { key, anchor: 3 }).unwrap().value, b"new");
+    }
+
+    #[test]
+    fn marks_name_shown_messages_or_the_request_a_hidden_reply_answers() {
+        let numbers = message_numbers([2, 0, 1].into_iter());
+        assert_eq!(numbers, vec![(1, vec![2, 3]), (4, vec![]), (5, vec![6])]);
+        let flow = [
+            SlotFlow { slot: 0, action: FlowAction::Copied, source: Source::Anchor(0), from: Some(at(0)) },
+            SlotFlow {
+                slot: 1,
+                action: FlowAction::Copied,
+                source: Source::Anchor(0),
+                from: Some(MessageRef { step: 2, reply: Some(1) }),
+            },
+            SlotFlow { slot: 2, action: FlowAction::BrokenFresh, source: Source::Anchor(0), from: None },
+        ];
+        assert_eq!(marks(&flow, &|_| None), vec!["flow:1<1", "flow:2<3r2", "flow-broken:3:fresh"]);
+        assert_eq!(marks(&flow[..1], &|m| Some(m.step as usize + 10)), vec!["flow:1<10"]);
+    }
+}

@@ -295,11 +295,21 @@ impl FlowCounter {
                     }
                 }
                 let target = base + j as u32;
-                if let Some((p, _, k)) = oldest {
-                    self.rows.entry((target, k, pos - p)).or_default().0 += 1;
-                }
-                if let Some((p, _, k)) = newest {
-                    self.rows.entry((target, k, pos - p)).or_default().1 += 1;
+                match (oldest, newest) {
+                    // One holder (the common case): one row gets both credits.
+                    (Some((p, _, k)), Some((q, _, l))) if k == l && p == q => {
+                        let e = self.rows.entry((target, k, pos - p)).or_default();
+                        e.0 += 1;
+                        e.1 += 1;
+                    }
+                    _ => {
+                        if let Some((p, _, k)) = oldest {
+                            self.rows.entry((target, k, pos - p)).or_default().0 += 1;
+                        }
+                        if let Some((p, _, k)) = newest {
+                            self.rows.entry((target, k, pos - p)).or_default().1 += 1;
+                        }
+                    }
                 }
             }
         }
