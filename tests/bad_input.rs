@@ -140,6 +140,7 @@ fn bad_options_are_usage_errors() {
     let lamp = corpus("lamp-control").display().to_string();
     fails(&["learn", &lamp, "-o", &out, "--order", "0"], &["--order"]);
     fails(&["learn", &lamp, "-o", &out, "--discount", "1.5"], &["--discount"]);
+    fails(&["learn", &lamp, "-o", &out, "--flow-window", "5000"], &["--flow-window"]);
     let run = tracewalk(&["learn", &lamp]);
     assert_eq!(run.status.code(), Some(2));
     let run = tracewalk(&["frobnicate"]);

@@ -234,6 +234,16 @@ fn live_sessions_use_the_values_the_target_returns() {
         assert!(trace.messages.last().unwrap().marks.iter().any(|m| m == "flow:1<4"), "{trace:?}");
         assert!(!String::from_utf8_lossy(&trace.wire_bytes()).contains("OK OPEN"));
     }
+    // A reply without any ticket: nothing to copy, the generated value stays and is not marked
+    // as a copy.
+    let generated = String::from_utf8(walk.steps[2].render(&model)).unwrap();
+    let mut live = LiveSession::new(&model, walk.clone()).unwrap();
+    live.next_message();
+    live.observe_reply(b"OK HELLO desk=spoke-and-sprocket\n");
+    live.next_message();
+    live.observe_reply(b"ERR 503 desk busy\n");
+    assert_eq!(String::from_utf8(live.next_message().unwrap()).unwrap(), generated);
+    assert!(!live.trace().messages.last().unwrap().marks.iter().any(|m| m.starts_with("flow:1<")));
 }
 
 #[test]

@@ -222,7 +222,7 @@ impl Memory {
     }
 
     /// Values in the window other than `not`, preferring those of class `class`, oldest first.
-    fn others(&self, class: Option<u32>, not: &[u8]) -> Vec<Found<'_>> {
+    pub(crate) fn others(&self, class: Option<u32>, not: &[u8]) -> Vec<Found<'_>> {
         let mut seen: Vec<&[u8]> = Vec::new();
         let mut same = Vec::new();
         let mut any = Vec::new();

@@ -70,26 +70,6 @@ impl<'m> LiveSession<'m> {
         let step = self.walk.steps.get_mut(i)?;
         self.next += 1;
         self.replies.push(Vec::new());
-        for f in &mut step.flow {
-            if f.action != FlowAction::Copied {
-                continue;
-            }
-            // The target decides the shape of its replies: a value of the same kind from any
-            // message will do when the source template slot has none.
-            let found = match f.source {
-                Source::Slot { key, anchor } => {
-                    self.memory.by_key(key).or_else(|| self.memory.by_anchor(anchor, false))
-                }
-                Source::Anchor(a) => self.memory.by_anchor(a, false),
-            };
-            if let Some(found) = found
-                && let Some(v) = step.values.get_mut(f.slot as usize)
-            {
-                *v = found.value.to_vec();
-                f.from = Some(found.from);
-                step.verbatim = None;
-            }
-        }
         let template = match step.template {
             crate::symbol::NOVEL => model.learned_template(&step.tokens),
             t => Some(t),
@@ -97,14 +77,57 @@ impl<'m> LiveSession<'m> {
         let from = MessageRef { step: i as u32, reply: None };
         if step.is_opaque() {
             self.memory.record(from, None, &[], &[]);
-        } else {
-            let slots = match template {
-                Some(t) => model.template_slots(t).to_vec(),
-                None => model.slots_of(&step.tokens),
-            };
-            let keys = super::flow::slot_keys(model, Side::Request, template, &slots);
-            self.memory.record(from, template.map(|t| (Side::Request, t)), &keys, &step.values);
+            return Some(step.render(model));
         }
+        let slots = match template {
+            Some(t) => model.template_slots(t).to_vec(),
+            None => model.slots_of(&step.tokens),
+        };
+        let keys = super::flow::slot_keys(model, Side::Request, template, &slots);
+        let memory = &self.memory;
+        let mut changed = false;
+        step.flow.retain_mut(|f| {
+            // The target decides the shape of its replies: a value of the same kind from any
+            // message will do when the source template slot has none.
+            let found = match f.source {
+                Source::Slot { key, anchor } => {
+                    memory.by_key(key).or_else(|| memory.by_anchor(anchor, false))
+                }
+                Source::Anchor(a) => memory.by_anchor(a, false),
+            };
+            let Some(value) = step.values.get_mut(f.slot as usize) else { return false };
+            match f.action {
+                FlowAction::Copied => match found {
+                    Some(found) => {
+                        changed |= *value != found.value;
+                        *value = found.value.to_vec();
+                        f.from = Some(found.from);
+                        true
+                    }
+                    // Nothing to copy in this session: the generated value stays, uncoupled.
+                    None => false,
+                },
+                // Another value of this session than the source's, the oldest of its class.
+                FlowAction::BrokenOther => {
+                    let not = found.map_or(&value[..], |f| f.value);
+                    let class = keys.get(f.slot as usize).and_then(|k| k.1);
+                    match memory.others(class, not).first() {
+                        Some(other) => {
+                            changed |= *value != other.value;
+                            *value = other.value.to_vec();
+                            f.from = Some(other.from);
+                            true
+                        }
+                        None => false,
+                    }
+                }
+                FlowAction::BrokenFresh => true,
+            }
+        });
+        if changed {
+            step.verbatim = None;
+        }
+        self.memory.record(from, template.map(|t| (Side::Request, t)), &keys, &step.values);
         Some(step.render(model))
     }
 
