@@ -231,7 +231,7 @@ fn live_sessions_use_the_values_the_target_returns() {
         assert!(third.contains(id), "{third}");
         let trace = live.trace();
         assert_eq!(trace.messages.iter().filter(|m| m.is_reply()).count(), 2);
-        assert!(trace.messages.last().unwrap().marks.iter().any(|m| m == "flow:1<4"), "{trace:?}");
+        assert!(trace.messages.last().unwrap().marks.iter().any(|m| m == "flow:1<4.1"), "{trace:?}");
         assert!(!String::from_utf8_lossy(&trace.wire_bytes()).contains("OK OPEN"));
     }
     // A reply without any ticket: nothing to copy, the generated value stays and is not marked
@@ -345,4 +345,60 @@ fn gen_flow_and_reply_switches() {
     let conversation: Vec<u8> = traces.iter().flat_map(|t| t.conversation_bytes()).collect();
     assert_eq!(both, conversation);
     assert!(String::from_utf8_lossy(&both).contains("OK OPEN ticket="));
+}
+
+/// Plays messages against `desk`: `next` gets the reply to the previous message and gives the
+/// next message. True when the desk crashed.
+fn crashes(desk: &mut desk::Desk, mut next: impl FnMut(Option<&[u8]>) -> Option<Vec<u8>>) -> bool {
+    let mut reply: Option<Vec<u8>> = None;
+    while let Some(message) = next(reply.as_deref()) {
+        match desk.handle(String::from_utf8_lossy(&message).trim_end()) {
+            Ok(lines) => {
+                reply = Some(lines.iter().map(|l| format!("{l}\n")).collect::<String>().into_bytes())
+            }
+            Err(_) => return true,
+        }
+    }
+    false
+}
+
+// A finding against a target that issues fresh ids reproduces only if the replay uses the ids
+// the target issues on the replay: the stored trace's `flow:S<N.K` marks say where they go.
+#[test]
+fn stored_traces_replay_with_the_ids_the_target_issues_again() {
+    let model = learn_default("ticket-desk");
+    let mut generator = Generator::new(&model, GenOptions::default()).unwrap();
+    let mut found = None;
+    for i in 0..2000 {
+        let mut live = LiveSession::new(&model, generator.walk(1, i)).unwrap();
+        let mut desk = desk::Desk::new(1000 + i);
+        let crashed = crashes(&mut desk, |reply| {
+            if let Some(r) = reply {
+                live.observe_reply(r);
+            }
+            live.next_message()
+        });
+        if crashed {
+            found = Some(live.trace());
+            break;
+        }
+    }
+    let stored = found.expect("the planted bug is found with replies captured");
+    let text = stored.to_text();
+    let stored = tracewalk::trace::Trace::parse(&text).unwrap();
+    assert!(stored.messages.iter().any(|m| m.marks.iter().any(|x| x.starts_with("flow:1<"))), "{text}");
+    // Another desk issues other ids: sending the stored bytes misses the bug, replaying with
+    // the marks finds it.
+    let wire: Vec<Vec<u8>> =
+        stored.messages.iter().filter(|m| !m.is_reply()).map(|m| m.bytes.clone()).collect();
+    let mut plain = wire.into_iter();
+    assert!(!crashes(&mut desk::Desk::new(424242), |_| plain.next()), "{text}");
+    let mut replay = tracewalk::generate::live::Replay::new(&model, &stored).unwrap();
+    let crashed = crashes(&mut desk::Desk::new(424242), |reply| {
+        if let Some(r) = reply {
+            replay.observe_reply(r);
+        }
+        replay.next_message()
+    });
+    assert!(crashed, "{text}");
 }

@@ -22,9 +22,9 @@
 //!
 //! Rare mode may break a coupling: with the flow-break rate per copied slot, the slot gets a
 //! fresh pool value instead (`flow-broken:S:fresh`) or another value the session used earlier
-//! (`flow-broken:S:other<N`). Copies are marked `flow:S<N` (slot S copies message N of the
-//! trace; `Nr` is the expected reply to message N when replies are not shown, `Nr2` its second
-//! reply).
+//! (`flow-broken:S:other<N.K`). Copies are marked `flow:S<N.K`: slot S copies slot K of message
+//! N of the trace (`Nr` is the expected reply to message N when replies are not shown, `Nr2` its
+//! second reply); [`crate::generate::live::Replay`] reads these marks back.
 //!
 //! Against a target that replies, [`crate::generate::live::LiveSession`] resolves the same
 //! copies with the values the target actually returned.
@@ -77,8 +77,10 @@ pub struct SlotFlow {
     pub action: FlowAction,
     /// What the slot copies, or would have copied when broken.
     pub source: Source,
-    /// The message the value came from (none for a fresh value).
+    /// The message the value came from (none for a fresh value)…
     pub from: Option<MessageRef>,
+    /// …and the slot of that message (0-based).
+    pub from_slot: u32,
 }
 
 /// A reply the model expects to a generated request. Never sent to a target.
@@ -101,6 +103,8 @@ impl ReplyStep {
 #[derive(Debug, Clone)]
 struct Entry {
     pos: u32,
+    /// Ordinal of the slot in its message.
+    slot: u32,
     class: Option<u32>,
     /// Range of the value in [`Memory::bytes`].
     start: usize,
@@ -125,11 +129,12 @@ pub struct Memory {
     by_anchor_unkeyed: FxHashMap<u32, u64>,
 }
 
-/// A value found in a [`Memory`].
+/// A value found in a [`Memory`]: the bytes, the message and the slot (0-based) that held it.
 #[derive(Debug, Clone, Copy)]
 pub struct Found<'a> {
     pub value: &'a [u8],
     pub from: MessageRef,
+    pub slot: u32,
 }
 
 impl Memory {
@@ -163,7 +168,7 @@ impl Memory {
             let abs = self.first + self.entries.len() as u64;
             let start = self.bytes.len();
             self.bytes.extend_from_slice(value);
-            self.entries.push_back(Entry { pos, class, start, end: self.bytes.len(), from });
+            self.entries.push_back(Entry { pos, slot: j as u32, class, start, end: self.bytes.len(), from });
             if let Some((side, t)) = template {
                 self.by_key.insert(SlotKey { side, template: t, slot: j as u32 }, abs);
             }
@@ -195,7 +200,7 @@ impl Memory {
 
     fn at(&self, abs: u64) -> Option<Found<'_>> {
         let e = self.entries.get(abs.checked_sub(self.first)? as usize)?;
-        Some(Found { value: &self.bytes[e.start..e.end], from: e.from })
+        Some(Found { value: &self.bytes[e.start..e.end], from: e.from, slot: e.slot })
     }
 
     /// The latest value of a template slot within the window.
@@ -232,7 +237,7 @@ impl Memory {
                 continue;
             }
             seen.push(value);
-            let f = Found { value, from: e.from };
+            let f = Found { value, from: e.from, slot: e.slot };
             if class.is_some() && e.class == class {
                 same.push(f);
             }
@@ -368,7 +373,7 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
             else {
                 continue;
             };
-            let (value, from) = (found.value, found.from);
+            let (value, from, from_slot) = (found.value, found.from, found.slot);
             let slot = j as u32;
             if self.options.break_rate > 0.0 && self.rng.random::<f64>() < self.options.break_rate {
                 let others = self.memory.others(keys[j].1, value);
@@ -380,6 +385,7 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
                         action: FlowAction::BrokenOther,
                         source,
                         from: Some(pick.from),
+                        from_slot: pick.slot,
                     });
                 } else {
                     let mut v = fresh(j, self.rng);
@@ -390,13 +396,19 @@ impl<R: Rng + ?Sized> Pass<'_, '_, R> {
                         v = fresh(j, self.rng);
                     }
                     values[j] = v;
-                    flow.push(SlotFlow { slot, action: FlowAction::BrokenFresh, source, from: None });
+                    flow.push(SlotFlow {
+                        slot,
+                        action: FlowAction::BrokenFresh,
+                        source,
+                        from: None,
+                        from_slot: 0,
+                    });
                 }
                 continue;
             }
             values[j].clear();
             values[j].extend_from_slice(value);
-            flow.push(SlotFlow { slot, action: FlowAction::Copied, source, from: Some(from) });
+            flow.push(SlotFlow { slot, action: FlowAction::Copied, source, from: Some(from), from_slot });
         }
     }
 }
@@ -516,9 +528,10 @@ pub fn marks(flow: &[SlotFlow], number: &dyn Fn(MessageRef) -> Option<usize>) ->
     flow.iter()
         .map(|f| {
             let s = f.slot + 1;
+            let k = f.from_slot + 1;
             match (f.action, f.from) {
-                (FlowAction::Copied, Some(m)) => format!("flow:{s}<{}", name(m)),
-                (FlowAction::BrokenOther, Some(m)) => format!("flow-broken:{s}:other<{}", name(m)),
+                (FlowAction::Copied, Some(m)) => format!("flow:{s}<{}.{k}", name(m)),
+                (FlowAction::BrokenOther, Some(m)) => format!("flow-broken:{s}:other<{}.{k}", name(m)),
                 _ => format!("flow-broken:{s}:fresh"),
             }
         })
@@ -568,16 +581,29 @@ mod tests {
         let numbers = message_numbers([2, 0, 1].into_iter());
         assert_eq!(numbers, vec![(1, vec![2, 3]), (4, vec![]), (5, vec![6])]);
         let flow = [
-            SlotFlow { slot: 0, action: FlowAction::Copied, source: Source::Anchor(0), from: Some(at(0)) },
+            SlotFlow {
+                slot: 0,
+                action: FlowAction::Copied,
+                source: Source::Anchor(0),
+                from: Some(at(0)),
+                from_slot: 0,
+            },
             SlotFlow {
                 slot: 1,
                 action: FlowAction::Copied,
                 source: Source::Anchor(0),
                 from: Some(MessageRef { step: 2, reply: Some(1) }),
+                from_slot: 3,
             },
-            SlotFlow { slot: 2, action: FlowAction::BrokenFresh, source: Source::Anchor(0), from: None },
+            SlotFlow {
+                slot: 2,
+                action: FlowAction::BrokenFresh,
+                source: Source::Anchor(0),
+                from: None,
+                from_slot: 0,
+            },
         ];
-        assert_eq!(marks(&flow, &|_| None), vec!["flow:1<1", "flow:2<3r2", "flow-broken:3:fresh"]);
-        assert_eq!(marks(&flow[..1], &|m| Some(m.step as usize + 10)), vec!["flow:1<10"]);
+        assert_eq!(marks(&flow, &|_| None), vec!["flow:1<1.1", "flow:2<3r2.4", "flow-broken:3:fresh"]);
+        assert_eq!(marks(&flow[..1], &|m| Some(m.step as usize + 10)), vec!["flow:1<10.1"]);
     }
 }

@@ -102,6 +102,7 @@ impl<'m> LiveSession<'m> {
                         changed |= *value != found.value;
                         *value = found.value.to_vec();
                         f.from = Some(found.from);
+                        f.from_slot = found.slot;
                         true
                     }
                     // Nothing to copy in this session: the generated value stays, uncoupled.
@@ -116,6 +117,7 @@ impl<'m> LiveSession<'m> {
                             changed |= *value != other.value;
                             *value = other.value.to_vec();
                             f.from = Some(other.from);
+                            f.from_slot = other.slot;
                             true
                         }
                         None => false,
@@ -199,5 +201,127 @@ impl<'m> LiveSession<'m> {
             }
         }
         Trace { header: Vec::new(), messages }
+    }
+}
+
+/// Replays a stored trace against a target that replies, re-resolving its copies from what
+/// the target answers this time. A trace stored from a [`LiveSession`] names, in its
+/// `flow:S<N.K` marks, where each copied value came from (slot K of message N of the trace,
+/// replies numbered with the rest, or `Nr`, `Nr2`… for replies it does not show); a target
+/// that issues fresh ids on every run then gets the ids it has just issued, not those of the
+/// stored run. Messages are sent as stored otherwise (a message whose tokens the model cannot
+/// read is sent byte for byte, its copies ignored), and a source the replay has not seen (the
+/// target answered with fewer replies or slots) leaves the stored value.
+#[derive(Debug)]
+pub struct Replay<'m> {
+    model: &'m Compiled,
+    steps: Vec<super::Step>,
+    /// Per request: (slot, source message, source slot).
+    copies: Vec<Vec<(usize, MessageRef, usize)>>,
+    next: usize,
+    /// Slot values of the requests sent, and of each reply observed after each of them.
+    sent: Vec<Vec<Vec<u8>>>,
+    observed: Vec<Vec<Vec<Vec<u8>>>>,
+    reader: Reader,
+    scratch: Tokenized,
+}
+
+/// Reads a copy mark `flow:S<N.K` into (slot, message, source slot), all 0-based; `numbers`
+/// maps trace numbers (1-based) to messages.
+fn parse_copy(mark: &str, numbers: &[MessageRef]) -> Option<(usize, MessageRef, usize)> {
+    let rest = mark.strip_prefix("flow:")?;
+    let (slot, source) = rest.split_once('<')?;
+    let (message, source_slot) = source.rsplit_once('.')?;
+    let (slot, source_slot): (usize, usize) = (slot.parse().ok()?, source_slot.parse().ok()?);
+    let from = match message.split_once('r') {
+        None => *numbers.get(message.parse::<usize>().ok()?.checked_sub(1)?)?,
+        Some((step, k)) => {
+            let k = if k.is_empty() { 1 } else { k.parse::<u32>().ok()? };
+            MessageRef { step: step.parse::<u32>().ok()?.checked_sub(1)?, reply: Some(k.checked_sub(1)?) }
+        }
+    };
+    Some((slot.checked_sub(1)?, from, source_slot.checked_sub(1)?))
+}
+
+impl<'m> Replay<'m> {
+    /// A replay of `trace` (requests, and the replies marked `reply` that were stored with
+    /// them) for `model`.
+    pub fn new(model: &'m Compiled, trace: &Trace) -> Result<Replay<'m>, GenError> {
+        let reader = Reader::new(&model.settings.read).map_err(|e| GenError::Options(e.to_string()))?;
+        let mut numbers = Vec::with_capacity(trace.messages.len());
+        let mut requests = Vec::new();
+        let mut marks = Vec::new();
+        for m in &trace.messages {
+            if m.is_reply() {
+                let step = requests.len().saturating_sub(1) as u32;
+                let k = numbers.iter().filter(|r: &&MessageRef| r.step == step && r.reply.is_some()).count();
+                numbers.push(MessageRef { step, reply: Some(k as u32) });
+            } else {
+                numbers.push(MessageRef { step: requests.len() as u32, reply: None });
+                requests.push(m.bytes.clone());
+                marks.push(m.marks.clone());
+            }
+        }
+        let steps = super::mutate::walk_of_messages(model, &requests).steps;
+        let copies = marks
+            .iter()
+            .zip(&steps)
+            .map(|(marks, step)| {
+                if step.is_opaque() {
+                    return Vec::new();
+                }
+                marks.iter().filter_map(|m| parse_copy(m, &numbers)).collect()
+            })
+            .collect();
+        Ok(Replay {
+            model,
+            steps,
+            copies,
+            next: 0,
+            sent: Vec::new(),
+            observed: Vec::new(),
+            reader,
+            scratch: Tokenized::default(),
+        })
+    }
+
+    /// The next request with its copies resolved from this replay; `None` at the end.
+    pub fn next_message(&mut self) -> Option<Vec<u8>> {
+        let i = self.next;
+        let step = self.steps.get_mut(i)?;
+        self.next += 1;
+        for &(slot, from, source_slot) in &self.copies[i] {
+            let source = match from.reply {
+                None => self.sent.get(from.step as usize),
+                Some(k) => self.observed.get(from.step as usize).and_then(|r| r.get(k as usize)),
+            };
+            if let Some(v) = source.and_then(|values| values.get(source_slot))
+                && let Some(target) = step.values.get_mut(slot)
+                && target != v
+            {
+                *target = v.clone();
+                step.verbatim = None;
+            }
+        }
+        self.sent.push(step.values.clone());
+        self.observed.push(Vec::new());
+        Some(step.render(self.model))
+    }
+
+    /// Records what the target answered to the request last sent (one or more replies).
+    pub fn observe_reply(&mut self, bytes: &[u8]) {
+        let Some(list) = self.observed.last_mut() else { return };
+        let (frames, _) = self.reader.messages(bytes);
+        for (frame, _) in frames {
+            self.model.tokenizer.tokenize(&frame, &mut self.scratch);
+            let values = self
+                .scratch
+                .pieces
+                .iter()
+                .filter(|p| matches!(p.kind, PieceKind::Slot(_)))
+                .map(|p| self.scratch.bytes(p).to_vec())
+                .collect();
+            list.push(values);
+        }
     }
 }
