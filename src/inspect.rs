@@ -57,6 +57,52 @@ pub struct PoolRow {
     pub top: Vec<(String, u64)>,
 }
 
+/// One learned value-flow coupling, in words and numbers.
+#[derive(Debug, Clone, Serialize)]
+pub struct CouplingRow {
+    /// `request` or `reply`.
+    pub target_side: String,
+    /// First line of the target template.
+    pub target_template: String,
+    /// 1-based slot number in the target template.
+    pub target_slot: u32,
+    /// The slot's class and anchor, e.g. `{int} after carts`.
+    pub target_slot_text: String,
+    pub source_side: String,
+    pub source_template: String,
+    pub source_slot: u32,
+    pub source_slot_text: String,
+    /// For a reply source: the request template it most often answered.
+    pub source_answers: Option<String>,
+    pub copies: u64,
+    pub occurrences: u64,
+    pub rate: f64,
+    pub chance: f64,
+    /// `null` in JSON when chance is 0.
+    pub lift: Option<f64>,
+    /// Commonest distance in messages (requests and replies).
+    pub typical_distance: u32,
+    /// Which holder of a value the target's occurrences are credited to: `oldest holder` (the
+    /// slot that introduced the value) or `newest holder` (the latest slot that held it).
+    pub reading: String,
+    /// The coupling in one sentence.
+    pub sentence: String,
+}
+
+/// What value flow learned.
+#[derive(Debug, Clone, Serialize)]
+pub struct FlowSummary {
+    /// Messages looked back (0: flow was not learned).
+    pub window: u32,
+    pub reply_templates: usize,
+    /// Candidate couplings (pairs with at least one copy) and those kept as real.
+    pub candidates: usize,
+    pub kept: usize,
+    /// Kept couplings, those of request slots first, then most copies first (all of them,
+    /// whatever `top`).
+    pub couplings: Vec<CouplingRow>,
+}
+
 /// Everything `show` prints.
 #[derive(Debug, Clone, Serialize)]
 pub struct Summary {
@@ -78,6 +124,7 @@ pub struct Summary {
     pub top_templates: Vec<Successor>,
     pub top_contexts: Vec<ContextRow>,
     pub pools: Vec<PoolRow>,
+    pub flow: FlowSummary,
 }
 
 /// A template as `show` prints it: the template text, except that an HTTP template is cut to its
@@ -88,13 +135,29 @@ pub fn template_label(model: &Model, symbol: u32) -> String {
     if model.settings.read.format != Some(crate::read::Format::Http) || model.template(symbol).is_none() {
         return text;
     }
+    http_label(&text, &format!("#{}", symbol - crate::symbol::FIRST_TEMPLATE + 1))
+}
+
+/// [`template_label`] for a reply template; HTTP reply templates are numbered `#r1`, `#r2`, ….
+pub fn reply_template_label(model: &Model, symbol: u32) -> String {
+    let text = model.replies.template_text(symbol);
+    if model.settings.read.format != Some(crate::read::Format::Http)
+        || model.replies.template(symbol).is_none()
+    {
+        return text;
+    }
+    http_label(&text, &format!("#r{}", symbol - crate::symbol::FIRST_TEMPLATE + 1))
+}
+
+/// An HTTP template's text cut to its start line, field count and body, then `number`.
+fn http_label(text: &str, number: &str) -> String {
     let (head, body) = match text.find("{body") {
         Some(i) => {
             let rest = &text[i..];
             let after = rest.find('}').map_or("", |j| &rest[j + 1..]);
             (&text[..i], after)
         }
-        None => (text.as_str(), ""),
+        None => (text, ""),
     };
     let mut lines = head.split("\\r\\n").filter(|l| !l.is_empty());
     let start = lines.next().unwrap_or("");
@@ -104,7 +167,8 @@ pub fn template_label(model: &Model, symbol: u32) -> String {
         label.push(' ');
         label.push_str(body);
     }
-    label.push_str(&format!(" #{}", symbol - crate::symbol::FIRST_TEMPLATE + 1));
+    label.push(' ');
+    label.push_str(number);
     label
 }
 
@@ -203,6 +267,7 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
     pools.sort_by(|a, b| b.seen.cmp(&a.seen).then_with(|| a.class.cmp(&b.class)));
     pools.truncate(top.max(1) * 2);
 
+    let flow = flow_summary(model);
     Summary {
         hash: hash.to_string(),
         format: model.settings.read.format.map_or("?", |f| f.name()).to_string(),
@@ -228,6 +293,145 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
         top_templates,
         top_contexts,
         pools,
+        flow,
+    }
+}
+
+/// The first line of a template (tokens up to the first line break), slots as `{class}`.
+fn first_line(tokens: &[Token], template: &[u32]) -> String {
+    let mut out = String::new();
+    for &s in template {
+        let Some(t) = s.checked_sub(crate::symbol::FIRST_TOKEN).and_then(|i| tokens.get(i as usize)) else {
+            continue;
+        };
+        if let Token::Lit(b) = t
+            && let Some(i) = b.iter().position(|&c| c == b'\n' || c == b'\r')
+        {
+            out.push_str(&escape::escape(&b[..i]));
+            break;
+        }
+        out.push_str(&t.display());
+    }
+    out
+}
+
+/// A template for the value-flow list: HTTP templates as [`template_label`] gives them, others
+/// as their first line.
+fn flow_label(model: &Model, side: crate::model::flow::Side, symbol: u32) -> String {
+    use crate::model::flow::Side;
+    let http = model.settings.read.format == Some(crate::read::Format::Http);
+    match (side, http) {
+        (Side::Request, true) => template_label(model, symbol),
+        (Side::Reply, true) => reply_template_label(model, symbol),
+        (Side::Request, false) => first_line(&model.tokens, model.template(symbol).unwrap_or_default()),
+        (Side::Reply, false) => {
+            first_line(&model.replies.tokens, model.replies.template(symbol).unwrap_or_default())
+        }
+    }
+}
+
+/// The value-flow part of [`summarize`].
+pub fn flow_summary(model: &Model) -> FlowSummary {
+    use crate::model::flow::{Side, SlotKey, couplings, slot_anchors};
+    let all = couplings(model);
+    let side_of = |k: &SlotKey| match k.side {
+        Side::Request => (&model.tokens, model.template(k.template).unwrap_or_default()),
+        Side::Reply => (&model.replies.tokens, model.replies.template(k.template).unwrap_or_default()),
+    };
+    let slot_text = |k: &SlotKey| {
+        let (tokens, template) = side_of(k);
+        match slot_anchors(tokens, template).get(k.slot as usize) {
+            Some((class, Some(a))) => {
+                let anchor = a
+                    .checked_sub(crate::symbol::FIRST_TOKEN)
+                    .and_then(|i| tokens.get(i as usize))
+                    .map(Token::display);
+                format!("{{{class}}} after `{}`", anchor.unwrap_or_default().trim())
+            }
+            Some((class, None)) => format!("{{{class}}}"),
+            None => "?".into(),
+        }
+    };
+    // The request each reply template most often answered.
+    let mut answers: std::collections::BTreeMap<u32, (u64, u32)> = Default::default();
+    let mut per_pair: std::collections::BTreeMap<(u32, u32), u64> = Default::default();
+    for run in &model.replies.runs {
+        for &r in &run.replies.0 {
+            *per_pair.entry((r, run.request)).or_default() += run.count;
+        }
+    }
+    for ((reply, request), n) in per_pair {
+        let e = answers.entry(reply).or_insert((0, request));
+        if n > e.0 {
+            *e = (n, request);
+        }
+    }
+    let mut rows: Vec<CouplingRow> = all
+        .iter()
+        .filter(|c| c.accepted)
+        .map(|c| {
+            let source_answers = match c.source.side {
+                Side::Reply => answers.get(&c.source.template).map(|&(_, q)| flow_label(model, Side::Request, q)),
+                Side::Request => None,
+            };
+            let target_template = flow_label(model, c.target.side, c.target.template);
+            let source_template = flow_label(model, c.source.side, c.source.template);
+            let source_words = match (&c.source.side, &source_answers) {
+                (Side::Reply, Some(q)) => format!("the reply `{source_template}` to `{q}`"),
+                (Side::Reply, None) => format!("the reply `{source_template}`"),
+                (Side::Request, _) if c.source == c.target => "the same slot of an earlier such message".into(),
+                (Side::Request, _) => format!("`{source_template}`"),
+            };
+            let back = if c.distance == 1 { "1 message".to_string() } else { format!("{} messages", c.distance) };
+            let sentence = format!(
+                "slot {} ({}) of {}`{}` reuses slot {} ({}) of {} in {:.0}% of occurrences ({} of {}; chance {:.2}%), typically {} back",
+                c.target.slot + 1,
+                slot_text(&c.target),
+                if c.target.side == Side::Reply { "the reply " } else { "" },
+                target_template,
+                c.source.slot + 1,
+                slot_text(&c.source),
+                source_words,
+                100.0 * c.rate,
+                c.copies,
+                c.occurrences,
+                100.0 * c.chance,
+                back
+            );
+            CouplingRow {
+                target_side: c.target.side.name().into(),
+                target_template,
+                target_slot: c.target.slot + 1,
+                target_slot_text: slot_text(&c.target),
+                source_side: c.source.side.name().into(),
+                source_template,
+                source_slot: c.source.slot + 1,
+                source_slot_text: slot_text(&c.source),
+                source_answers,
+                copies: c.copies,
+                occurrences: c.occurrences,
+                rate: c.rate,
+                chance: c.chance,
+                lift: c.lift.is_finite().then_some(c.lift),
+                typical_distance: c.distance,
+                reading: c.reading.name().into(),
+                sentence,
+            }
+        })
+        .collect();
+    // Requests first: their couplings are what generated traffic reproduces.
+    rows.sort_by(|a, b| {
+        (a.target_side != "request")
+            .cmp(&(b.target_side != "request"))
+            .then(b.copies.cmp(&a.copies))
+            .then_with(|| a.sentence.cmp(&b.sentence))
+    });
+    FlowSummary {
+        window: model.settings.flow_window,
+        reply_templates: model.replies.templates.len(),
+        candidates: all.len(),
+        kept: rows.len(),
+        couplings: rows,
     }
 }
 

@@ -42,6 +42,11 @@ impl TraceMessage {
     pub fn new(bytes: Vec<u8>) -> TraceMessage {
         TraceMessage { bytes, surprise: None, marks: Vec::new() }
     }
+
+    /// True for a message marked `reply`: what the other side answers, never sent.
+    pub fn is_reply(&self) -> bool {
+        self.marks.iter().any(|m| m == "reply")
+    }
 }
 
 /// A trace: header fields (ordered key/value pairs) and messages.
@@ -80,8 +85,15 @@ impl Trace {
         }
     }
 
-    /// The wire bytes of the whole trace (messages concatenated).
+    /// The wire bytes of the whole trace: the messages sent, concatenated. Messages marked
+    /// `reply` (what the other side is expected to answer) are not sent and not included.
     pub fn wire_bytes(&self) -> Vec<u8> {
+        self.messages.iter().filter(|m| !m.is_reply()).flat_map(|m| m.bytes.iter().copied()).collect()
+    }
+
+    /// Every message's bytes concatenated, replies included: the conversation as it would
+    /// travel in both directions (readable by `learn` like a capture).
+    pub fn conversation_bytes(&self) -> Vec<u8> {
         self.messages.iter().flat_map(|m| m.bytes.iter().copied()).collect()
     }
 

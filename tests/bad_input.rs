@@ -101,10 +101,14 @@ fn damaged_model_files() {
     fails(&["gen", &foreign], &["foreign.model", "not a tracewalk model"]);
     let empty = write(dir.path(), "empty.model", b"");
     fails(&["gen", &empty], &["empty.model", "empty file"]);
-    let newer =
-        String::from_utf8(text.clone()).unwrap().replacen("tracewalk_model: 1", "tracewalk_model: 7", 1);
+    let current = format!("tracewalk_model: {}", tracewalk::model::MODEL_FORMAT_VERSION);
+    let newer = String::from_utf8(text.clone()).unwrap().replacen(&current, "tracewalk_model: 7", 1);
     let newer = write(dir.path(), "newer.model", newer.as_bytes());
     fails(&["show", &newer], &["newer.model", "format 7 is newer"]);
+    // Format 1 had no replies or value flow: older files are refused with the way out.
+    let older = String::from_utf8(text.clone()).unwrap().replacen(&current, "tracewalk_model: 1", 1);
+    let older = write(dir.path(), "older.model", older.as_bytes());
+    fails(&["show", &older], &["older.model", "format 1 is older", "learn the model again"]);
     let edited = String::from_utf8(text.clone()).unwrap().replacen("sessions: 450", "sessions: 451", 1);
     let edited = write(dir.path(), "edited.model", edited.as_bytes());
     fails(&["show", &edited], &["edited.model", "content hash mismatch"]);
@@ -136,6 +140,7 @@ fn bad_options_are_usage_errors() {
     let lamp = corpus("lamp-control").display().to_string();
     fails(&["learn", &lamp, "-o", &out, "--order", "0"], &["--order"]);
     fails(&["learn", &lamp, "-o", &out, "--discount", "1.5"], &["--discount"]);
+    fails(&["learn", &lamp, "-o", &out, "--flow-window", "5000"], &["--flow-window"]);
     let run = tracewalk(&["learn", &lamp]);
     assert_eq!(run.status.code(), Some(2));
     let run = tracewalk(&["frobnicate"]);

@@ -119,6 +119,7 @@ fn merge_of_shards_equals_learning_everything() {
     for (name, read) in [
         ("lamp-control", vec!["--format", "lines", "--reply-pattern", "^(OK|ERR|VAL|EVT)( |$)"]),
         ("shop-api", vec!["--format", "http"]),
+        ("ticket-desk", vec!["--format", "lines", "--reply-pattern", "^(OK|ERR|VAL)( |$)"]),
     ] {
         let dir = tempfile::tempdir().unwrap();
         let (a, b) = (dir.path().join("a"), dir.path().join("b"));

@@ -13,7 +13,7 @@ fuzz_target!(|data: &[u8]| {
         data.to_vec()
     } else {
         let mut f = b"TRACEWALK-MODEL\0".to_vec();
-        f.extend_from_slice(&1u32.to_le_bytes());
+        f.extend_from_slice(&tracewalk::model::MODEL_FORMAT_VERSION.to_le_bytes());
         f.extend_from_slice(blake3::hash(data).as_bytes());
         f.extend_from_slice(data);
         f

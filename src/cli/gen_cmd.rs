@@ -44,6 +44,17 @@ pub struct Args {
     /// With --through: print the single most probable such session.
     #[arg(long)]
     best: bool,
+    /// Fill every slot from its pool independently instead of reproducing the learned value flow
+    /// (which slots reuse values that earlier messages or replies issued).
+    #[arg(long)]
+    no_flow: bool,
+    /// Show the replies the model expects after each request, marked `reply` (never sent; with
+    /// --raw they are written too, as a two-sided capture).
+    #[arg(long)]
+    replies: bool,
+    /// Rare mode: probability per copied slot of breaking the coupling (default: the rare rate).
+    #[arg(long, value_name = "R")]
+    flow_break_rate: Option<f64>,
     /// Longest trace in messages (also the length bound for --through and tour sessions).
     #[arg(long, default_value_t = 200)]
     max_messages: usize,
@@ -80,6 +91,9 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
         hostile,
         through: a.through.clone(),
         best: a.best,
+        flow: !a.no_flow,
+        replies: a.replies,
+        flow_break_rate: a.flow_break_rate,
         ..GenOptions::default()
     };
     let mut generator = Generator::new(&model, options)?;
@@ -97,7 +111,11 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
         if let Some(r) = &mut report {
             r.add(&trace);
         }
-        let bytes = if a.raw { trace.wire_bytes() } else { trace.to_text().into_bytes() };
+        let bytes = match (a.raw, a.replies) {
+            (true, false) => trace.wire_bytes(),
+            (true, true) => trace.conversation_bytes(),
+            (false, _) => trace.to_text().into_bytes(),
+        };
         match &a.output {
             Some(dir) => {
                 let name = format!("{:0width$}.{}", i + 1, if a.raw { "raw" } else { "trace" });

@@ -50,6 +50,10 @@ pub struct Args {
     /// Templates seen fewer times are one "novel message" symbol in the session chain.
     #[arg(long, default_value_t = 2)]
     min_template_count: u64,
+    /// Value flow: how many messages (requests and replies) to look back for the earlier slot a
+    /// value was copied from; 0 learns neither replies nor value flow.
+    #[arg(long, default_value_t = tracewalk::model::flow::DEFAULT_FLOW_WINDOW, value_name = "N")]
+    flow_window: u32,
     /// Write the compact binary encoding instead of YAML.
     #[arg(long)]
     binary: bool,
@@ -77,6 +81,8 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
     anyhow::ensure!((1..=8).contains(&a.max_order), "--max-order must be within 1..=8");
     anyhow::ensure!(a.min_template_count >= 1, "--min-template-count must be at least 1");
     anyhow::ensure!(a.pool_cap >= 1 && a.pool_cap <= 1 << 20, "--pool-cap must be within 1..=1048576");
+    let max_window = tracewalk::model::flow::MAX_FLOW_WINDOW;
+    anyhow::ensure!(a.flow_window <= max_window, "--flow-window must be within 0..={max_window}");
     if let Some(d) = a.discount {
         anyhow::ensure!(d > 0.0 && d <= 1.0, "--discount must be within (0, 1]");
     }
@@ -131,6 +137,7 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
         discount: a.discount,
         pool_cap: a.pool_cap,
         min_template_count: a.min_template_count,
+        flow_window: a.flow_window,
         rules,
     };
     let (model, report) = tracewalk::model::learn(&corpus, &learn_options, Some(&progress))?;
@@ -160,6 +167,16 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
             model.session_chain.order,
             model.message_chain.order
         );
+        if a.flow_window > 0 {
+            let couplings = tracewalk::model::flow::couplings(&model);
+            eprintln!(
+                "value flow: {} reply templates; {} couplings kept of {} candidates (window {} messages)",
+                model.replies.templates.len(),
+                couplings.iter().filter(|c| c.accepted).count(),
+                couplings.len(),
+                a.flow_window
+            );
+        }
         eprintln!("wrote {} ({})", a.output.display(), &tracewalk::model::content_hash(&model)[..16]);
     }
     Ok(0)

@@ -50,7 +50,7 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
     if a.json {
         println!("{}", serde_json::to_string_pretty(&summary)?);
     } else {
-        print_summary(&summary);
+        print_summary(&summary, a.top);
     }
     Ok(0)
 }
@@ -84,7 +84,7 @@ fn print_chain(name: &str, unit: &str, c: &ChainSummary) {
     }
 }
 
-fn print_summary(s: &Summary) {
+fn print_summary(s: &Summary, top: usize) {
     println!("model {}  format {}  smoothing {}", &s.hash[..16], s.format, s.smoothing);
     println!(
         "learned from {} sessions, {} messages ({} tokens), {} replies",
@@ -131,6 +131,25 @@ fn print_summary(s: &Summary) {
             p.kept,
             top.join(", ")
         );
+    }
+    print_flow(&s.flow, top);
+}
+
+fn print_flow(f: &tracewalk::inspect::FlowSummary, top: usize) {
+    println!();
+    if f.window == 0 {
+        println!("value flow: not learned (--flow-window 0)");
+        return;
+    }
+    println!(
+        "value flow (window {} messages; {} reply templates): {} couplings kept of {} candidates",
+        f.window, f.reply_templates, f.kept, f.candidates
+    );
+    for c in f.couplings.iter().take(top.max(1) * 3) {
+        println!("  {}", c.sentence);
+    }
+    if f.couplings.len() > top.max(1) * 3 {
+        println!("  … {} more (--top, or --json for all)", f.couplings.len() - top.max(1) * 3);
     }
 }
 

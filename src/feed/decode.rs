@@ -142,6 +142,8 @@ pub fn decode(model: &Compiled, u: &mut Unstructured<'_>, options: &DecodeOption
             marks,
             skew: Skew::default(),
             verbatim: None,
+            flow: Vec::new(),
+            replies: Vec::new(),
         });
     }
     walk

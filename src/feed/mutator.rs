@@ -36,7 +36,12 @@ pub struct InputMutator<'m> {
 impl<'m> InputMutator<'m> {
     /// A mutator reading inputs the way the model was learned.
     pub fn new(model: &'m Compiled) -> Result<InputMutator<'m>, ReadError> {
-        Ok(InputMutator { model, reader: Reader::new(&model.settings.read)?, mutator: Mutator::new(model), stack: 3 })
+        Ok(InputMutator {
+            model,
+            reader: Reader::new(&model.settings.read)?,
+            mutator: Mutator::new(model),
+            stack: 3,
+        })
     }
 
     /// Mutates `data[..size]` in place (`data` is at least `max_size` long) so that the result

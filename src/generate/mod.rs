@@ -12,9 +12,15 @@
 //! frontier (least-visited transitions first, [`frontier`]) and tour (every learned transition,
 //! [`tour`]). Waypoints ([`waypoint`]) condition plausible sessions on visiting templates in
 //! order. [`mutate`] edits traces with the same model; [`report`] measures a batch.
+//!
+//! Whatever the mode, value flow ([`flow`]) then runs over the walk: coupled slots copy the
+//! values earlier messages issued, and the expected replies are drawn; rare mode applies its
+//! hostile values after that. [`live`] resolves the copies against a target's real replies.
 
+pub mod flow;
 pub mod frontier;
 pub mod hostile;
+pub mod live;
 pub mod mutate;
 pub mod novel;
 pub mod rare;
@@ -109,6 +115,14 @@ pub struct GenOptions {
     pub through: Vec<String>,
     /// With waypoints: the single most probable session instead of samples.
     pub best: bool,
+    /// Reproduce the learned value flow (see [`flow`]); off, every slot is filled from its pool
+    /// independently.
+    pub flow: bool,
+    /// Show the replies the model expects after each request in traces, marked `reply` (never
+    /// part of the wire bytes).
+    pub replies: bool,
+    /// Rare mode: probability per copied slot of breaking the coupling; `None` uses `rare_rate`.
+    pub flow_break_rate: Option<f64>,
 }
 
 impl Default for GenOptions {
@@ -124,6 +138,9 @@ impl Default for GenOptions {
             hostile: Some(HostileLibrary::builtin()),
             through: Vec::new(),
             best: false,
+            flow: true,
+            replies: false,
+            flow_break_rate: None,
         }
     }
 }
@@ -152,6 +169,8 @@ pub struct Generator<'m> {
     model: &'m Compiled,
     options: GenOptions,
     prepared: Prepared,
+    /// Reused by value flow from walk to walk.
+    memory: flow::Memory,
 }
 
 fn check_rate(name: &str, r: f64) -> Result<(), GenError> {
@@ -179,6 +198,9 @@ impl<'m> Generator<'m> {
         if let Some(h) = options.hostile_rate {
             check_rate("the hostile rate", h)?;
         }
+        if let Some(b) = options.flow_break_rate {
+            check_rate("the flow-break rate", b)?;
+        }
         if options.best && options.through.is_empty() {
             return Err(GenError::Options("--best needs at least one --through waypoint".into()));
         }
@@ -203,7 +225,7 @@ impl<'m> Generator<'m> {
                 _ => Prepared::Nothing,
             }
         };
-        Ok(Generator { model, options, prepared })
+        Ok(Generator { model, options, prepared, memory: flow::Memory::new(model.flow.window()) })
     }
 
     pub fn model(&self) -> &'m Compiled {
@@ -255,7 +277,7 @@ impl<'m> Generator<'m> {
     pub fn walk(&mut self, seed: u64, index: u64) -> Walk {
         let mut rng = trace_rng(seed, index);
         let (model, options) = (self.model, &self.options);
-        match &mut self.prepared {
+        let mut walk = match &mut self.prepared {
             Prepared::Waypoints(plan) => {
                 let symbols = if options.best { plan.best() } else { plan.sample(&mut rng) };
                 let mut walk = walk::of_symbols(model, options, &symbols, &mut rng);
@@ -274,13 +296,29 @@ impl<'m> Generator<'m> {
                 Mode::Novel => novel::novel(model, options, &mut rng),
                 _ => walk::plausible(model, options, &mut rng),
             },
+        };
+        let flow_options = self.flow_options();
+        flow::apply_with(model, &flow_options, &mut walk, &mut rng, &mut self.memory);
+        if options.mode == Mode::Rare {
+            rare::apply_hostile_walk(model, options, &mut walk, &mut rng);
+        }
+        walk
+    }
+
+    /// How this generator applies value flow.
+    pub fn flow_options(&self) -> flow::FlowOptions {
+        let o = &self.options;
+        flow::FlowOptions {
+            copy: o.flow,
+            replies: o.replies,
+            break_rate: if o.mode == Mode::Rare { o.flow_break_rate.unwrap_or(o.rare_rate) } else { 0.0 },
         }
     }
 
     /// Trace `index` of the batch seeded with `seed`, annotated.
     pub fn trace(&mut self, seed: u64, index: u64) -> Trace {
         let walk = self.walk(seed, index);
-        let mut trace = walk.to_trace(self.model);
+        let mut trace = walk.render_trace(self.model, self.options.replies);
         trace.header = vec![
             ("model".into(), self.model.short_hash().to_string()),
             ("seed".into(), seed.to_string()),
@@ -292,6 +330,9 @@ impl<'m> Generator<'m> {
         }
         if self.options.mode == Mode::Rare {
             trace.set("rare-rate", self.options.rare_rate.to_string());
+        }
+        if !self.options.flow {
+            trace.set("flow", "off");
         }
         if !self.options.through.is_empty() {
             let list: Vec<String> = self.options.through.iter().map(|t| format!("`{t}`")).collect();
@@ -308,19 +349,37 @@ impl<'m> Generator<'m> {
 }
 
 impl Walk {
-    /// Renders the walk to a trace (no header).
+    /// Renders the walk to a trace (no header), requests only.
     pub fn to_trace(&self, model: &Compiled) -> Trace {
-        Trace {
-            header: Vec::new(),
-            messages: self
-                .steps
-                .iter()
-                .map(|s| TraceMessage {
-                    bytes: s.render(model),
-                    surprise: Some(s.surprise),
-                    marks: s.marks.clone(),
-                })
-                .collect(),
+        self.render_trace(model, false)
+    }
+
+    /// Renders the walk to a trace (no header); with `replies`, each request is followed by the
+    /// replies the model expects, marked `reply` (they are not part of the trace's wire bytes).
+    /// Value flow shows in marks (see [`flow`]).
+    pub fn render_trace(&self, model: &Compiled, replies: bool) -> Trace {
+        let numbers =
+            flow::message_numbers(self.steps.iter().map(|s| if replies { s.replies.len() } else { 0 }));
+        let number = |m: flow::MessageRef| {
+            let (own, rs) = numbers.get(m.step as usize)?;
+            match m.reply {
+                None => Some(*own),
+                Some(k) => rs.get(k as usize).copied(),
+            }
+        };
+        let mut messages = Vec::new();
+        for s in &self.steps {
+            let mut marks = s.marks.clone();
+            marks.extend(flow::marks(&s.flow, &number));
+            messages.push(TraceMessage { bytes: s.render(model), surprise: Some(s.surprise), marks });
+            if replies {
+                for r in &s.replies {
+                    let mut marks = vec!["reply".to_string()];
+                    marks.extend(flow::marks(&r.flow, &number));
+                    messages.push(TraceMessage { bytes: r.render(model), surprise: None, marks });
+                }
+            }
         }
+        Trace { header: Vec::new(), messages }
     }
 }

@@ -121,6 +121,8 @@ pub fn walk_of_messages(model: &Compiled, messages: &[Vec<u8>]) -> Walk {
                     marks: Vec::new(),
                     skew: Skew::default(),
                     verbatim: Some(m.clone()),
+                    flow: Vec::new(),
+                    replies: Vec::new(),
                 };
             };
             let values = scratch
@@ -138,6 +140,8 @@ pub fn walk_of_messages(model: &Compiled, messages: &[Vec<u8>]) -> Walk {
                 marks: Vec::new(),
                 skew: Skew::default(),
                 verbatim: None,
+                flow: Vec::new(),
+                replies: Vec::new(),
             };
             if step.render(model) != *m {
                 step.verbatim = Some(m.clone());

@@ -91,6 +91,8 @@ pub fn novel<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
                     marks: vec!["novel".into()],
                     skew: Skew::default(),
                     verbatim: None,
+                    flow: Vec::new(),
+                    replies: Vec::new(),
                 }
             }
             None => make_step(

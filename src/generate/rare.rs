@@ -14,7 +14,9 @@
 //! 60% of unconditioned traces would have none.
 //!
 //! Independently, each slot gets a hostile value with the hostile rate, and each message that
-//! writes a Content-Length gets a skewed one with the same rate (see [`super::hostile`]).
+//! writes a Content-Length gets a skewed one with the same rate (see [`super::hostile`]). The
+//! generator applies them ([`apply_hostile_walk`]) after value flow, so a hostile value is a
+//! one-off: later messages keep copying the value the session established.
 
 use rand::{Rng, RngExt};
 
@@ -53,7 +55,7 @@ pub fn tail_step<R: Rng + ?Sized>(
     scratch.last().copied()
 }
 
-/// A rare walk (see the module documentation).
+/// A rare walk (see the module documentation), without hostile values.
 pub fn rare<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut R) -> Walk {
     let mut walk = Walk::default();
     for _ in 0..MAX_DRAWS {
@@ -69,7 +71,6 @@ fn rare_once<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
     let mut walk = Walk::default();
     let mut history: Vec<u32> = Vec::new();
     let mut scratch = Vec::new();
-    let hostile_rate = options.hostile_rate.unwrap_or(options.rare_rate);
     while walk.steps.len() < options.max_messages {
         let forced = rng.random::<f64>() < options.rare_rate;
         let tail = if forced { tail_step(&model.session, &history, rng, &mut scratch) } else { None };
@@ -88,13 +89,25 @@ fn rare_once<R: Rng + ?Sized>(model: &Compiled, options: &GenOptions, rng: &mut 
         if tail.is_some() {
             step.marks.push("rare".into());
         }
-        if let Some(lib) = &options.hostile {
-            apply_hostile(model, &mut step, lib, hostile_rate, rng);
-        }
         walk.steps.push(step);
         history.push(s);
     }
     walk
+}
+
+/// Hostile values and skewed lengths for every step of a walk, with the options' hostile
+/// library and rate (nothing without a library).
+pub fn apply_hostile_walk<R: Rng + ?Sized>(
+    model: &Compiled,
+    options: &GenOptions,
+    walk: &mut Walk,
+    rng: &mut R,
+) {
+    let Some(lib) = &options.hostile else { return };
+    let rate = options.hostile_rate.unwrap_or(options.rare_rate);
+    for step in &mut walk.steps {
+        apply_hostile(model, step, lib, rate, rng);
+    }
 }
 
 /// With probability `rate` per slot, replaces the slot's value by a hostile one of its class;
@@ -120,6 +133,7 @@ pub fn apply_hostile<R: Rng + ?Sized>(
             && let Some(value) = step.values.get_mut(i)
         {
             *value = v.bytes.clone();
+            step.flow.retain(|f| f.slot != i as u32);
             step.marks.push(format!("hostile:{}:{}", i + 1, v.name));
             step.verbatim = None;
         }

@@ -3,6 +3,7 @@
 use rand::{Rng, RngExt};
 
 use super::GenOptions;
+use super::flow::{ReplyStep, SlotFlow};
 use crate::chain::Chain;
 use crate::model::Compiled;
 use crate::symbol::{BEGIN, END, NOVEL};
@@ -27,6 +28,10 @@ pub struct Step {
     /// cannot reproduce (unknown tokens, or a form the renderer normalises, such as a body in
     /// several chunks). Edits that change `tokens` or `values` clear it.
     pub verbatim: Option<Vec<u8>>,
+    /// Value flow of this message's slots (see [`super::flow`]).
+    pub flow: Vec<SlotFlow>,
+    /// The replies the model expects to this message (never sent; see [`super::flow`]).
+    pub replies: Vec<ReplyStep>,
 }
 
 impl Step {
@@ -40,6 +45,8 @@ impl Step {
             marks: Vec::new(),
             skew: Skew::default(),
             verbatim: None,
+            flow: Vec::new(),
+            replies: Vec::new(),
         }
     }
 
@@ -247,6 +254,8 @@ pub fn make_step<R: Rng + ?Sized>(
         marks,
         skew: Skew::default(),
         verbatim: None,
+        flow: Vec::new(),
+        replies: Vec::new(),
     }
 }
 

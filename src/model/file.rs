@@ -13,7 +13,7 @@ use std::path::Path;
 use super::{Model, ModelError};
 
 /// Version of the model file format this build reads and writes.
-pub const MODEL_FORMAT_VERSION: u32 = 1;
+pub const MODEL_FORMAT_VERSION: u32 = 2;
 
 const MAGIC: &[u8; 16] = b"TRACEWALK-MODEL\0";
 const YAML_KEY: &str = "tracewalk_model:";
@@ -99,6 +99,15 @@ fn check_version(version: u32, origin: &str) -> Result<(), ModelError> {
     }
     if version == 0 {
         return Err(problem(origin, "model format 0 does not exist"));
+    }
+    if version < MODEL_FORMAT_VERSION {
+        // Format 2 added replies and value flow, which older files cannot supply.
+        return Err(problem(
+            origin,
+            format!(
+                "model format {version} is older than this tracewalk reads ({MODEL_FORMAT_VERSION}); learn the model again"
+            ),
+        ));
     }
     Ok(())
 }

@@ -9,8 +9,10 @@
 
 mod compiled;
 mod file;
+pub mod flow;
 mod learn;
 mod pool;
+pub mod reply;
 
 use rustc_hash::FxHashMap;
 use serde::{Deserialize, Serialize};
@@ -26,8 +28,10 @@ pub use file::{
     Encoding, MODEL_FORMAT_VERSION, content_hash, from_bytes, from_bytes_with_hash, load, load_with_hash,
     save, to_bytes,
 };
+pub use flow::{FlowRow, Side, SlotKey};
 pub use learn::{LearnOptions, LearnReport, OrderChoice, learn};
 pub use pool::{MAX_VALUE_BYTES, Pool, PoolBuilder, PoolValue, value_hash};
+pub use reply::{Replies, ReplyRun, ReplyTemplate};
 
 /// Errors of the model stage.
 #[derive(Debug, Error)]
@@ -60,11 +64,19 @@ pub struct Settings {
     /// Applied when chains are built, so counts stay exactly mergeable.
     #[serde(default = "default_min_template_count")]
     pub min_template_count: u64,
+    /// Value flow: messages (requests and replies) looked back for the source of a slot value;
+    /// 0 learns neither replies nor value flow (see [`flow`]).
+    #[serde(default = "default_flow_window")]
+    pub flow_window: u32,
     pub rules: RuleSet,
 }
 
 fn default_min_template_count() -> u64 {
     2
+}
+
+fn default_flow_window() -> u32 {
+    flow::DEFAULT_FLOW_WINDOW
 }
 
 /// Sizes of what was learned (additive under merge).
@@ -134,6 +146,10 @@ pub struct Model {
     pub message_chain: Grams,
     /// Slot value pools, sorted by (class, anchor).
     pub pools: Vec<Pool>,
+    /// Replies: their own vocabulary, templates, pools, and which followed each request.
+    pub replies: Replies,
+    /// Value-flow counts, sorted (see [`flow`]).
+    pub flow: Vec<FlowRow>,
 }
 
 impl Model {
@@ -283,6 +299,134 @@ impl Model {
                 return Err("pools are not in canonical order".into());
             }
         }
+        self.validate_replies(&classes)?;
+        self.validate_flow()
+    }
+
+    fn validate_replies(&self, classes: &[String]) -> Result<(), String> {
+        let r = &self.replies;
+        if r.tokens.windows(2).any(|w| w[0] >= w[1]) {
+            return Err("reply tokens are not in canonical order".into());
+        }
+        if r.tokens.len() > (u32::MAX / 2) as usize || r.templates.len() > (u32::MAX / 2) as usize {
+            return Err("too many reply tokens or templates".into());
+        }
+        for t in &r.tokens {
+            if let Token::Slot(c) = t
+                && !classes.contains(c)
+            {
+                return Err(format!("reply token names unknown slot class `{c}`"));
+            }
+        }
+        let token_symbols = FIRST_TOKEN + r.tokens.len() as u32;
+        for (i, t) in r.templates.iter().enumerate() {
+            if t.tokens.0.iter().any(|&s| !(FIRST_TOKEN..token_symbols).contains(&s)) {
+                return Err(format!("reply template {i} uses an unknown token"));
+            }
+            if t.count == 0 {
+                return Err(format!("reply template {i} has count 0"));
+            }
+            if i > 0 && r.templates[i - 1].tokens >= t.tokens {
+                return Err("reply templates are not in canonical order".into());
+            }
+        }
+        for (i, p) in r.pools.iter().enumerate() {
+            if !classes.contains(&p.class) {
+                return Err(format!("reply pool {i} names unknown slot class `{}`", p.class));
+            }
+            if p.anchor.is_some_and(|a| !(FIRST_TOKEN..token_symbols).contains(&a)) {
+                return Err(format!("reply pool {i} has an unknown anchor"));
+            }
+            if p.values.len() > self.settings.pool_cap as usize {
+                return Err(format!("reply pool {i} holds more values than the pool cap"));
+            }
+            if i > 0 && (&r.pools[i - 1].class, r.pools[i - 1].anchor) >= (&p.class, p.anchor) {
+                return Err("reply pools are not in canonical order".into());
+            }
+        }
+        let reply_symbols = FIRST_TEMPLATE + r.templates.len() as u32;
+        let transitions: FxHashMap<(u32, u32), u64> = if self.session_chain.order >= 1 {
+            self.session_chain.marginal(1).rows().map(|(g, c)| ((g[0], g[1]), c[0] + c[1])).collect()
+        } else {
+            FxHashMap::default()
+        };
+        let mut answered: FxHashMap<(u32, u32), u64> = FxHashMap::default();
+        let symbols = self.session_symbols();
+        for (i, run) in r.runs.iter().enumerate() {
+            let request_ok =
+                run.request == crate::symbol::BEGIN || (FIRST_TEMPLATE..symbols).contains(&run.request);
+            let next_ok = run.next == crate::symbol::END || (FIRST_TEMPLATE..symbols).contains(&run.next);
+            if !request_ok
+                || !next_ok
+                || run.replies.0.is_empty()
+                || run.replies.0.len() > reply::MAX_REPLY_RUN
+                || run.replies.0.iter().any(|&s| !(FIRST_TEMPLATE..reply_symbols).contains(&s))
+                || run.count == 0
+            {
+                return Err(format!("reply run {i} is malformed"));
+            }
+            let prev = &r.runs.get(i.wrapping_sub(1));
+            if prev.is_some_and(|p| (p.request, p.next, &p.replies) >= (run.request, run.next, &run.replies))
+            {
+                return Err("reply runs are not in canonical order".into());
+            }
+            let a = answered.entry((run.request, run.next)).or_default();
+            *a += run.count;
+            if *a > transitions.get(&(run.request, run.next)).copied().unwrap_or(0) {
+                return Err(format!(
+                    "reply runs between templates {} and {} outnumber that transition",
+                    run.request, run.next
+                ));
+            }
+        }
+        Ok(())
+    }
+
+    fn validate_flow(&self) -> Result<(), String> {
+        let window = self.settings.flow_window;
+        if window > flow::MAX_FLOW_WINDOW {
+            return Err(format!("flow window {window} is over {}", flow::MAX_FLOW_WINDOW));
+        }
+        if window == 0 && (!self.flow.is_empty() || !self.replies.is_empty()) {
+            return Err("flow window 0 but flow or reply counts present".into());
+        }
+        let slots = |k: &SlotKey| -> Option<usize> {
+            let (tokens, template) = match k.side {
+                Side::Request => (&self.tokens, self.template(k.template)?),
+                Side::Reply => (&self.replies.tokens, self.replies.template(k.template)?),
+            };
+            Some(
+                template
+                    .iter()
+                    .filter(|&&s| matches!(tokens.get((s - FIRST_TOKEN) as usize), Some(Token::Slot(_))))
+                    .count(),
+            )
+        };
+        let occurrences = [self.template_counts(), self.replies.templates.iter().map(|t| t.count).collect()];
+        let mut credited: FxHashMap<SlotKey, (u64, u64)> = FxHashMap::default();
+        for (i, row) in self.flow.iter().enumerate() {
+            for k in [&row.target, &row.source] {
+                if slots(k).is_none_or(|n| k.slot as usize >= n) {
+                    return Err(format!("flow row {i} names an unknown slot {k}"));
+                }
+            }
+            if row.oldest + row.newest == 0 || row.distance == 0 || row.distance > window {
+                return Err(format!("flow row {i} is malformed"));
+            }
+            if i > 0
+                && (self.flow[i - 1].target, self.flow[i - 1].source, self.flow[i - 1].distance)
+                    >= (row.target, row.source, row.distance)
+            {
+                return Err("flow rows are not in canonical order".into());
+            }
+            let n = occurrences[row.target.side.index()][(row.target.template - FIRST_TEMPLATE) as usize];
+            let c = credited.entry(row.target).or_default();
+            c.0 += row.oldest;
+            c.1 += row.newest;
+            if c.0 > n || c.1 > n {
+                return Err(format!("flow rows of slot {} outnumber its occurrences", row.target));
+            }
+        }
         Ok(())
     }
 }
@@ -296,6 +440,8 @@ fn describe_settings_difference(a: &Settings, b: &Settings) -> String {
         "smoothing"
     } else if a.min_template_count != b.min_template_count {
         "minimum template count"
+    } else if a.flow_window != b.flow_window {
+        "value-flow window"
     } else {
         "pool cap"
     };
@@ -311,6 +457,14 @@ pub(crate) struct Draft {
     pub message_chain: Grams,
     pub pools: Vec<Pool>,
     pub totals: Totals,
+    /// Reply vocabulary, templates (with counts) and pools, in this draft's own symbols.
+    pub reply_tokens: Vec<Token>,
+    pub reply_templates: Vec<(Vec<u32>, u64)>,
+    pub reply_pools: Vec<Pool>,
+    /// Reply runs of a finished model; learning counts them after putting units together.
+    pub reply_runs: Vec<ReplyRun>,
+    /// Flow rows in this draft's symbols (templates `FIRST_TEMPLATE + i` of its lists).
+    pub flow: Vec<FlowRow>,
 }
 
 impl From<Model> for Draft {
@@ -322,38 +476,89 @@ impl From<Model> for Draft {
             message_chain: m.message_chain,
             pools: m.pools,
             totals: m.totals,
+            reply_tokens: m.replies.tokens,
+            reply_templates: m.replies.templates.into_iter().map(|t| (t.tokens.0, t.count)).collect(),
+            reply_pools: m.replies.pools,
+            reply_runs: m.replies.runs,
+            flow: m.flow,
         }
     }
 }
 
-/// Puts drafts together in canonical order. Returns the model and, per draft, the session symbol
-/// of each of its templates.
-pub(crate) fn canonicalize(settings: Settings, drafts: Vec<Draft>) -> (Model, Vec<Vec<u32>>) {
-    use crate::symbol::{BEGIN, END, NOVEL};
-    let fixed = |s: u32, first: u32| s < first;
-    // Tokens.
-    let mut tokens: Vec<Token> = drafts.iter().flat_map(|d| d.tokens.iter().cloned()).collect();
+/// Per draft, the canonical symbol of each of its request and reply templates.
+#[derive(Debug, Clone, Default)]
+pub(crate) struct SymbolMaps {
+    pub templates: Vec<Vec<u32>>,
+    pub reply_templates: Vec<Vec<u32>>,
+}
+
+/// The sorted union of the drafts' vocabularies, and per draft the canonical symbol of each of
+/// its tokens.
+fn canonical_tokens<'a>(lists: impl Iterator<Item = &'a [Token]> + Clone) -> (Vec<Token>, Vec<Vec<u32>>) {
+    let mut tokens: Vec<Token> = lists.clone().flat_map(|l| l.iter().cloned()).collect();
     tokens.sort_unstable();
     tokens.dedup();
-    let token_index: FxHashMap<&Token, u32> =
+    let index: FxHashMap<&Token, u32> =
         tokens.iter().enumerate().map(|(i, t)| (t, FIRST_TOKEN + i as u32)).collect();
-    let token_maps: Vec<Vec<u32>> =
-        drafts.iter().map(|d| d.tokens.iter().map(|t| token_index[t]).collect()).collect();
-    let map_token =
-        |d: usize, s: u32| if fixed(s, FIRST_TOKEN) { s } else { token_maps[d][(s - FIRST_TOKEN) as usize] };
-    // Templates.
+    let maps = lists.map(|l| l.iter().map(|t| index[t]).collect()).collect();
+    (tokens, maps)
+}
+
+/// The sorted union of templates already in canonical token symbols, and per draft the
+/// canonical symbol of each of its templates.
+fn canonical_templates(remapped: &[Vec<Vec<u32>>]) -> (Vec<Vec<u32>>, Vec<Vec<u32>>) {
+    let mut templates: Vec<Vec<u32>> = remapped.iter().flatten().cloned().collect();
+    templates.sort_unstable();
+    templates.dedup();
+    let index: FxHashMap<&[u32], u32> =
+        templates.iter().enumerate().map(|(i, t)| (t.as_slice(), FIRST_TEMPLATE + i as u32)).collect();
+    let maps = remapped.iter().map(|ts| ts.iter().map(|t| index[t.as_slice()]).collect()).collect();
+    (templates, maps)
+}
+
+/// Pools of all drafts added up by (class, anchor), anchors mapped by `map_anchor(draft, symbol)`.
+fn canonical_pools<'a>(
+    pools: impl Iterator<Item = (usize, &'a [Pool])>,
+    map_anchor: impl Fn(usize, u32) -> u32,
+    cap: usize,
+) -> Vec<Pool> {
+    let mut out: std::collections::BTreeMap<(String, Option<u32>), Pool> = Default::default();
+    for (d, list) in pools {
+        for p in list {
+            let anchor = p.anchor.map(|a| map_anchor(d, a));
+            let key = (p.class.clone(), anchor);
+            let mut incoming = p.clone();
+            incoming.anchor = anchor;
+            match out.get_mut(&key) {
+                Some(existing) => existing.absorb(&incoming, cap),
+                None => {
+                    let mut fresh = Pool { values: Vec::new(), seen: 0, ..incoming.clone() };
+                    fresh.absorb(&incoming, cap);
+                    out.insert(key, fresh);
+                }
+            }
+        }
+    }
+    out.into_values().collect()
+}
+
+/// Puts drafts together in canonical order. Returns the model and, per draft, the canonical
+/// symbol of each of its request and reply templates.
+pub(crate) fn canonicalize(settings: Settings, drafts: Vec<Draft>) -> (Model, SymbolMaps) {
+    use crate::symbol::{BEGIN, END, NOVEL};
+    let fixed = |s: u32, first: u32| s < first;
+    let map_with = |maps: &[Vec<u32>], d: usize, s: u32, first: u32| {
+        if fixed(s, first) { s } else { maps[d][(s - first) as usize] }
+    };
+    // Request side.
+    let (tokens, token_maps) = canonical_tokens(drafts.iter().map(|d| d.tokens.as_slice()));
+    let map_token = |d: usize, s: u32| map_with(&token_maps, d, s, FIRST_TOKEN);
     let remapped: Vec<Vec<Vec<u32>>> = drafts
         .iter()
         .enumerate()
         .map(|(d, dr)| dr.templates.iter().map(|t| t.iter().map(|&s| map_token(d, s)).collect()).collect())
         .collect();
-    let mut templates: Vec<Vec<u32>> = remapped.iter().flatten().cloned().collect();
-    templates.sort_unstable();
-    templates.dedup();
-    let template_index: FxHashMap<&[u32], u32> =
-        templates.iter().enumerate().map(|(i, t)| (t.as_slice(), FIRST_TEMPLATE + i as u32)).collect();
-    let template_maps: Vec<Vec<u32>> =
-        remapped.iter().map(|ts| ts.iter().map(|t| template_index[t.as_slice()]).collect()).collect();
+    let (templates, template_maps) = canonical_templates(&remapped);
     // Chains.
     let mut message_chain: Option<Grams> = None;
     let mut session_chain: Option<Grams> = None;
@@ -374,25 +579,50 @@ pub(crate) fn canonicalize(settings: Settings, drafts: Vec<Draft>) -> (Model, Ve
             });
         }
     }
-    // Pools.
     let cap = settings.pool_cap as usize;
-    let mut pools: std::collections::BTreeMap<(String, Option<u32>), Pool> = Default::default();
+    let pools = canonical_pools(drafts.iter().map(|d| d.pools.as_slice()).enumerate(), map_token, cap);
+    // Reply side.
+    let (reply_tokens, reply_token_maps) = canonical_tokens(drafts.iter().map(|d| d.reply_tokens.as_slice()));
+    let map_reply_token = |d: usize, s: u32| map_with(&reply_token_maps, d, s, FIRST_TOKEN);
+    let remapped: Vec<Vec<Vec<u32>>> = drafts
+        .iter()
+        .enumerate()
+        .map(|(d, dr)| {
+            dr.reply_templates
+                .iter()
+                .map(|(t, _)| t.iter().map(|&s| map_reply_token(d, s)).collect())
+                .collect()
+        })
+        .collect();
+    let (reply_template_list, reply_template_maps) = canonical_templates(&remapped);
+    let mut reply_counts = vec![0u64; reply_template_list.len()];
     for (d, draft) in drafts.iter().enumerate() {
-        for p in &draft.pools {
-            let anchor = p.anchor.map(|a| map_token(d, a));
-            let key = (p.class.clone(), anchor);
-            let mut incoming = p.clone();
-            incoming.anchor = anchor;
-            match pools.get_mut(&key) {
-                Some(existing) => existing.absorb(&incoming, cap),
-                None => {
-                    let mut fresh = Pool { values: Vec::new(), seen: 0, ..incoming.clone() };
-                    fresh.absorb(&incoming, cap);
-                    pools.insert(key, fresh);
-                }
-            }
+        for (i, (_, count)) in draft.reply_templates.iter().enumerate() {
+            reply_counts[(reply_template_maps[d][i] - FIRST_TEMPLATE) as usize] += count;
         }
     }
+    let reply_pools =
+        canonical_pools(drafts.iter().map(|d| d.reply_pools.as_slice()).enumerate(), map_reply_token, cap);
+    let map_template = |d: usize, s: u32| map_with(&template_maps, d, s, FIRST_TEMPLATE);
+    let map_reply_template = |d: usize, s: u32| map_with(&reply_template_maps, d, s, FIRST_TEMPLATE);
+    let mut runs: std::collections::BTreeMap<(u32, u32, Vec<u32>), u64> = Default::default();
+    for (d, draft) in drafts.iter().enumerate() {
+        for run in &draft.reply_runs {
+            let replies = run.replies.0.iter().map(|&s| map_reply_template(d, s)).collect();
+            *runs.entry((map_template(d, run.request), map_template(d, run.next), replies)).or_default() +=
+                run.count;
+        }
+    }
+    let flow = flow::merge_rows(drafts.iter().enumerate().flat_map(|(d, draft)| {
+        let key = move |k: SlotKey| SlotKey {
+            template: match k.side {
+                Side::Request => map_template(d, k.template),
+                Side::Reply => map_reply_template(d, k.template),
+            },
+            ..k
+        };
+        draft.flow.iter().map(move |r| FlowRow { target: key(r.target), source: key(r.source), ..*r })
+    }));
     let mut totals = Totals::default();
     for d in &drafts {
         totals.add(&d.totals);
@@ -405,7 +635,26 @@ pub(crate) fn canonicalize(settings: Settings, drafts: Vec<Draft>) -> (Model, Ve
         templates: templates.into_iter().map(IdList).collect(),
         session_chain: session_chain.unwrap_or_else(|| Grams::empty(1)),
         message_chain: message_chain.unwrap_or_else(|| Grams::empty(message_order)),
-        pools: pools.into_values().collect(),
+        pools,
+        replies: Replies {
+            tokens: reply_tokens,
+            templates: reply_template_list
+                .into_iter()
+                .zip(reply_counts)
+                .map(|(t, count)| ReplyTemplate { tokens: IdList(t), count })
+                .collect(),
+            pools: reply_pools,
+            runs: runs
+                .into_iter()
+                .map(|((request, next, replies), count)| ReplyRun {
+                    request,
+                    next,
+                    replies: IdList(replies),
+                    count,
+                })
+                .collect(),
+        },
+        flow,
     };
-    (model, template_maps)
+    (model, SymbolMaps { templates: template_maps, reply_templates: reply_template_maps })
 }

@@ -82,11 +82,15 @@ impl PoolBuilder {
     }
 
     pub fn add(&mut self, value: &[u8]) {
+        self.add_hashed(value, value_hash(value));
+    }
+
+    /// [`PoolBuilder::add`] for a value whose [`value_hash`] is `h`.
+    pub fn add_hashed(&mut self, value: &[u8], h: u64) {
         self.seen += 1;
         if value.len() > MAX_VALUE_BYTES {
             return;
         }
-        let h = value_hash(value);
         if h > self.threshold {
             return; // the pool is full and keeps only smaller hashes
         }
