@@ -50,6 +50,9 @@ pub struct Lexer {
     rules: usize,
     rule_class: Vec<u16>,
     rule_group: Vec<Option<(Regex, usize)>>,
+    /// For group rules of the shape `literal (group) literal`: the literals' lengths, so the
+    /// group's span follows from the match without a capture search.
+    rule_delimited: Vec<Option<(usize, usize)>>,
     rule_refine: Vec<bool>,
     rule_requires: Vec<Option<Regex>>,
     classes: Vec<String>,
@@ -84,6 +87,7 @@ impl Lexer {
         let classes = rules.class_names();
         let mut rule_class = Vec::new();
         let mut rule_group = Vec::new();
+        let mut rule_delimited = Vec::new();
         let mut rule_refine = Vec::new();
         let mut rule_requires = Vec::new();
         for rule in &rules.rules {
@@ -110,6 +114,7 @@ impl Lexer {
                 .transpose()?;
             let class = classes.iter().position(|c| c == &rule.name).expect("listed") as u16;
             rule_class.push(class);
+            rule_delimited.push(rule.group.and_then(|g| delimited_shape(&rule.pattern, g)));
             rule_group.push(group);
             rule_refine.push(rule.refine);
             rule_requires.push(requires);
@@ -126,6 +131,7 @@ impl Lexer {
             rules: rules.rules.len(),
             rule_class,
             rule_group,
+            rule_delimited,
             rule_refine,
             rule_requires,
             classes,
@@ -242,10 +248,22 @@ impl Lexer {
         hay: &[u8],
         start: usize,
     ) -> Option<(u32, u32, u16)> {
-        let (re, group) = self.rule_group[rule].as_ref()?;
-        let (c, caps) = cache.groups[rule].get_or_insert_with(|| (re.create_cache(), re.create_captures()));
-        re.search_captures_with(c, &Input::new(hay).span(start..hay.len()).anchored(Anchored::Yes), caps);
-        let span = caps.get_group(*group)?;
+        let span = match self.rule_delimited[rule] {
+            Some((open, close)) if hay.len() >= start + open + close => {
+                regex_automata::Span { start: start + open, end: hay.len() - close }
+            }
+            _ => {
+                let (re, group) = self.rule_group[rule].as_ref()?;
+                let (c, caps) =
+                    cache.groups[rule].get_or_insert_with(|| (re.create_cache(), re.create_captures()));
+                re.search_captures_with(
+                    c,
+                    &Input::new(hay).span(start..hay.len()).anchored(Anchored::Yes),
+                    caps,
+                );
+                caps.get_group(*group)?
+            }
+        };
         let class = match self.rule_refine[rule] {
             true => self.classify_with(&mut cache.all, &hay[span.start..span.end]),
             false => None,
@@ -355,6 +373,23 @@ impl Tokenized {
     }
 }
 
+/// If `pattern` is `literal (group) literal` with `group` the capture group asked for, the
+/// byte lengths of the two literals: the group is then the match without them.
+fn delimited_shape(pattern: &str, group: usize) -> Option<(usize, usize)> {
+    use regex_syntax::hir::HirKind;
+    let hir = regex_syntax::ParserBuilder::new().unicode(false).utf8(false).build().parse(pattern).ok()?;
+    let HirKind::Concat(parts) = hir.kind() else { return None };
+    match parts.as_slice() {
+        [open, inner, close] => match (open.kind(), inner.kind(), close.kind()) {
+            (HirKind::Literal(a), HirKind::Capture(c), HirKind::Literal(b)) if c.index as usize == group => {
+                Some((a.0.len(), b.0.len()))
+            }
+            _ => None,
+        },
+        _ => None,
+    }
+}
+
 /// For each byte and the byte before it (or the start of the haystack): can any rule match
 /// starting at that byte? Computed from a lazy DFA of the rules: if its state after the first
 /// byte is dead, no rule matches there, whatever follows. Look-around in this regex dialect sees
@@ -420,5 +455,19 @@ impl RuleStarts {
     fn can_start(&self, before: Option<u8>, byte: u8) -> bool {
         let row = before.map_or(self.row_at_start, |b| self.row_after[b as usize]);
         self.rows[row as usize][byte as usize]
+    }
+}
+
+#[cfg(test)]
+mod shape_tests {
+    use super::delimited_shape;
+
+    #[test]
+    fn recognises_delimited_groups_only() {
+        assert_eq!(delimited_shape(r#""((?:[^"\\\r\n]|\\.)*)""#, 1), Some((1, 1)));
+        assert_eq!(delimited_shape(r"id=<(\d+)>;", 1), Some((4, 2)));
+        assert_eq!(delimited_shape(r"a(b)?c", 1), None);
+        assert_eq!(delimited_shape(r"(a)(b)c", 2), None);
+        assert_eq!(delimited_shape(r"x(\d+)y|z", 1), None);
     }
 }
