@@ -203,6 +203,8 @@ impl Trace {
                     let f = f.trim();
                     if let Some(bits) = f.strip_suffix(" bits") {
                         m.surprise = Some(bits.parse().map_err(|_| syntax(line_no, "bad surprise value"))?);
+                    } else if f.contains(|c: char| c.is_whitespace() || c == '|') {
+                        return Err(syntax(line_no, "an annotation is one word (or `N bits`)"));
                     } else if !f.is_empty() {
                         m.marks.push(f.to_string());
                     }
