@@ -1,0 +1,193 @@
+//! TCP targets: one connection per trace, each message written and its reply read.
+//!
+//! With a spawn command tracewalk starts the server itself, waits until the port accepts,
+//! reads its stderr (bounded), sees it crash (the connection drops and the process exits) and
+//! starts it again before the next run. A server that stops answering is killed and restarted
+//! too, so one hang does not spoil the runs after it.
+
+use std::io::Write;
+use std::net::{SocketAddr, TcpStream};
+use std::process::{Command, Stdio};
+use std::time::{Duration, Instant};
+
+use super::oracle::{Observation, ProcessEnd, ReplyEnd};
+use super::process::{Collector, Proc};
+use super::reply::read_reply;
+use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
+
+/// How long a crashing server may take to be seen as exited after the connection dropped.
+const EXIT_GRACE: Duration = Duration::from_millis(500);
+
+#[derive(Debug)]
+struct Server {
+    proc: Proc,
+    stderr: Collector,
+}
+
+/// A TCP server target.
+#[derive(Debug)]
+pub struct TcpTarget {
+    addr: SocketAddr,
+    spawn: Option<CommandLine>,
+    start_timeout: Duration,
+    spec: TargetSpec,
+    server: Option<Server>,
+}
+
+impl TcpTarget {
+    pub fn new(
+        addr: SocketAddr,
+        spawn: Option<CommandLine>,
+        start_timeout: Duration,
+        spec: TargetSpec,
+    ) -> TcpTarget {
+        TcpTarget { addr, spawn, start_timeout, spec, server: None }
+    }
+
+    /// Starts the server if tracewalk owns it and it is not running.
+    fn ensure_server(&mut self) -> Result<(), HarnessError> {
+        let Some(command) = &self.spawn else { return Ok(()) };
+        if let Some(server) = &mut self.server {
+            if server.proc.try_status().is_none() {
+                return Ok(());
+            }
+            self.server = None;
+        }
+        let port = self.addr.port().to_string();
+        let argv = command.argv_with(&[("{port}", port.as_ref())]);
+        let mut cmd = Command::new(&argv[0]);
+        cmd.args(&argv[1..]).stdin(Stdio::null()).stdout(Stdio::null()).stderr(Stdio::piped());
+        let mut proc = Proc::spawn(cmd, self.spec.limits)
+            .map_err(|source| HarnessError::Spawn { program: command.program().to_string(), source })?;
+        let stderr = Collector::start(proc.child().stderr.take().expect("piped"), self.spec.capture_limit);
+        let start = Instant::now();
+        loop {
+            if TcpStream::connect_timeout(&self.addr, Duration::from_millis(200)).is_ok() {
+                break;
+            }
+            let exited = proc.try_status();
+            if exited.is_some() || start.elapsed() >= self.start_timeout {
+                proc.kill();
+                let text = stderr.finish(Instant::now() + Duration::from_millis(100)).bytes();
+                let first = String::from_utf8_lossy(&text)
+                    .lines()
+                    .find(|l| !l.trim().is_empty())
+                    .unwrap_or("")
+                    .to_string();
+                let mut detail = match exited {
+                    Some(status) => format!(" (it exited: {status})"),
+                    None => String::new(),
+                };
+                if !first.is_empty() {
+                    detail.push_str(&format!("; it wrote: {first}"));
+                }
+                return Err(HarnessError::NotListening {
+                    program: command.text.clone(),
+                    addr: self.addr,
+                    waited_ms: start.elapsed().as_millis(),
+                    detail,
+                });
+            }
+            std::thread::sleep(Duration::from_millis(5));
+        }
+        self.server = Some(Server { proc, stderr });
+        Ok(())
+    }
+}
+
+/// True when an HTTP reply announces that the server closes the connection.
+fn closes_connection(reply: &[u8]) -> bool {
+    let head_end = reply.windows(4).position(|w| w == b"\r\n\r\n").unwrap_or(reply.len());
+    reply[..head_end].split(|&b| b == b'\n').any(|line| {
+        let line = String::from_utf8_lossy(line).to_ascii_lowercase();
+        line.starts_with("connection:") && line.contains("close")
+    })
+}
+
+impl Target for TcpTarget {
+    fn run(&mut self, messages: &[Vec<u8>]) -> Result<Report, HarnessError> {
+        let start = Instant::now();
+        let deadline = start + self.spec.timing.run_timeout;
+        self.ensure_server()?;
+        if let Some(server) = &self.server {
+            server.stderr.clear();
+        }
+        let spec = &self.spec;
+        let mut o = Observation::new(ProcessEnd::Running);
+        o.replies_required = spec.framing.required();
+        let mut timed_out = false;
+        let connect_wait = deadline.saturating_duration_since(Instant::now()).min(Duration::from_secs(2));
+        match TcpStream::connect_timeout(&self.addr, connect_wait) {
+            Ok(mut stream) => {
+                let _ = stream.set_nodelay(true);
+                for message in messages {
+                    let left = deadline.saturating_duration_since(Instant::now());
+                    if left.is_zero() {
+                        timed_out = true;
+                        break;
+                    }
+                    let _ = stream.set_write_timeout(Some(left));
+                    if stream.write_all(message).is_err() {
+                        o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::Closed });
+                        break;
+                    }
+                    let reply =
+                        read_reply(&mut stream, &spec.framing, &spec.timing, deadline, spec.capture_limit);
+                    let stop = reply.end == ReplyEnd::Closed || closes_connection(&reply.bytes);
+                    o.replies.push(reply);
+                    if Instant::now() >= deadline {
+                        timed_out = true;
+                    }
+                    if stop || timed_out {
+                        break;
+                    }
+                }
+            }
+            Err(source) => {
+                let server_died = self.server.as_mut().is_some_and(|s| s.proc.try_status().is_some());
+                if !server_died {
+                    let hint = if self.spawn.is_none() {
+                        " (is the server running? --spawn can start it)"
+                    } else {
+                        ""
+                    };
+                    return Err(HarnessError::Connect { addr: self.addr, source, hint });
+                }
+            }
+        }
+        let troubled =
+            timed_out || o.replies.iter().any(|r| !matches!(r.end, ReplyEnd::Complete | ReplyEnd::Quiet));
+        if let Some(server) = &mut self.server {
+            let wait_until = if troubled { Instant::now() + EXIT_GRACE } else { Instant::now() };
+            match server.proc.wait_until(wait_until.min(deadline.max(Instant::now()))) {
+                Some(status) => {
+                    o.end = ProcessEnd::from_status(status);
+                    o.stderr = server.stderr.finish(Instant::now() + Duration::from_millis(200));
+                    self.server = None;
+                }
+                None => {
+                    o.stderr = server.stderr.snapshot();
+                    if troubled {
+                        // A server that stopped answering would spoil the next runs: restart it.
+                        server.proc.kill();
+                        self.server = None;
+                        if timed_out {
+                            o.end = ProcessEnd::TimedOut;
+                        }
+                    }
+                }
+            }
+        } else if timed_out {
+            o.end = ProcessEnd::TimedOut;
+        }
+        o.elapsed = start.elapsed();
+        Ok(Report { failure: spec.oracles.judge(&o), transcript: o.transcript(), elapsed: o.elapsed })
+    }
+
+    fn describe(&self) -> String {
+        match &self.spawn {
+            Some(c) => format!("tcp {} (server: {})", self.addr, c.text),
+            None => format!("tcp {}", self.addr),
+        }
+    }
+}

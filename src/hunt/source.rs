@@ -1,0 +1,117 @@
+//! Where a campaign's traces come from.
+
+use rustc_hash::FxHashSet;
+
+use crate::generate::Generator;
+use crate::model::{Compiled, Model};
+use crate::symbol::{BEGIN, END};
+use crate::trace::Trace;
+
+/// A deterministic stream of traces for a campaign.
+///
+/// Contract: `trace` is called with indices 0, 1, 2, … in order, each once (a resumed campaign
+/// calls `skip` for the indices already run, so stateful sources end up in the same state), and
+/// the same sequence of calls gives the same traces.
+pub trait TraceSource {
+    /// Trace `index`.
+    fn trace(&mut self, index: u64) -> Trace;
+
+    /// Advances past trace `index` without needing it.
+    fn skip(&mut self, index: u64) {
+        self.trace(index);
+    }
+
+    /// Header fields that identify the campaign; a campaign directory only resumes a campaign
+    /// with equal identity.
+    fn identity(&self) -> Vec<(String, String)>;
+
+    /// Session-level transitions covered so far and learned by the model, if known.
+    fn coverage(&self) -> Option<(usize, usize)> {
+        None
+    }
+
+    /// The model, for token-level shrinking and annotations.
+    fn model(&self) -> Option<&Compiled> {
+        None
+    }
+}
+
+/// The first-order session transitions (previous template → template, with begin and end) seen
+/// in training.
+pub fn learned_transitions(model: &Model) -> FxHashSet<(u32, u32)> {
+    let grams = &model.session_chain;
+    if grams.order == 0 {
+        return FxHashSet::default();
+    }
+    grams.marginal(1).rows().filter(|(_, c)| c[0] + c[1] > 0).map(|(g, _)| (g[0], g[1])).collect()
+}
+
+/// Traces generated from a model.
+#[derive(Debug)]
+pub struct ModelSource<'m> {
+    generator: Generator<'m>,
+    seed: u64,
+    learned: FxHashSet<(u32, u32)>,
+    covered: FxHashSet<(u32, u32)>,
+}
+
+impl<'m> ModelSource<'m> {
+    /// `learned` comes from [`learned_transitions`] of the model before it was compiled.
+    pub fn new(generator: Generator<'m>, seed: u64, learned: FxHashSet<(u32, u32)>) -> ModelSource<'m> {
+        ModelSource { generator, seed, learned, covered: FxHashSet::default() }
+    }
+
+    fn walk(&mut self, index: u64) -> crate::generate::Walk {
+        let walk = self.generator.walk(self.seed, index);
+        let mut previous = BEGIN;
+        for t in walk.templates() {
+            if self.learned.contains(&(previous, t)) {
+                self.covered.insert((previous, t));
+            }
+            previous = t;
+        }
+        if walk.ended && self.learned.contains(&(previous, END)) {
+            self.covered.insert((previous, END));
+        }
+        walk
+    }
+}
+
+impl TraceSource for ModelSource<'_> {
+    fn trace(&mut self, index: u64) -> Trace {
+        let walk = self.walk(index);
+        let mut trace = walk.to_trace(self.generator.model());
+        trace.header = self.identity();
+        trace.set("index", index.to_string());
+        if !walk.ended {
+            trace.set("cut", format!("at {} messages", self.generator.options().max_messages));
+        }
+        trace
+    }
+
+    fn skip(&mut self, index: u64) {
+        self.walk(index);
+    }
+
+    fn identity(&self) -> Vec<(String, String)> {
+        let options = self.generator.options();
+        let mut id = vec![
+            ("model".to_string(), self.generator.model().short_hash().to_string()),
+            ("seed".to_string(), self.seed.to_string()),
+            ("mode".to_string(), options.mode.name().to_string()),
+        ];
+        if options.temperature != 1.0 {
+            id.push(("temperature".into(), options.temperature.to_string()));
+        }
+        id.push(("max-messages".into(), options.max_messages.to_string()));
+        id
+    }
+
+    fn coverage(&self) -> Option<(usize, usize)> {
+        Some((self.covered.len(), self.learned.len()))
+    }
+
+    fn model(&self) -> Option<&Compiled> {
+        Some(self.generator.model())
+    }
+}
