@@ -1,9 +1,12 @@
 //! Command-line interface.
 
 mod gen_cmd;
+mod hunt;
 mod learn;
+mod replay;
 mod score;
 mod show;
+mod target;
 
 use std::path::PathBuf;
 
@@ -27,6 +30,12 @@ enum Command {
     Gen(gen_cmd::Args),
     /// Print each message's surprise under a model and flag the unusual ones.
     Score(score::Args),
+    /// Drive a target with generated traces; keep, shrink and store every distinct failure.
+    Hunt(hunt::Args),
+    /// Run one trace (or one session of raw traffic) on a target and report the verdict.
+    Replay(replay::ReplayArgs),
+    /// Shrink a failing trace (or raw session) to a small one that fails the same way.
+    Shrink(replay::ShrinkArgs),
     /// Add models learned on separate shards of data.
     Merge(MergeArgs),
     /// Print the built-in slot rules (a starting point for a rules file of your own).
@@ -60,6 +69,9 @@ pub fn run() -> i32 {
         Command::Show(a) => show::run(a),
         Command::Gen(a) => gen_cmd::run(a),
         Command::Score(a) => score::run(a),
+        Command::Hunt(a) => hunt::run(a),
+        Command::Replay(a) => replay::replay(a),
+        Command::Shrink(a) => replay::shrink(a),
         Command::Merge(a) => merge(a),
         Command::Rules => {
             print!("{}", tracewalk::token::rules::BUILTIN_RULES_YAML);

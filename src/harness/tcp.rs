@@ -53,6 +53,12 @@ impl TcpTarget {
             }
             self.server = None;
         }
+        if TcpStream::connect_timeout(&self.addr, Duration::from_millis(100)).is_ok() {
+            return Err(HarnessError::Setup(format!(
+                "something already accepts connections on {}; stop it (an old server?) or leave out --spawn to test it as it is",
+                self.addr
+            )));
+        }
         let port = self.addr.port().to_string();
         let argv = command.argv_with(&[("{port}", port.as_ref())]);
         let mut cmd = Command::new(&argv[0]);

@@ -6,7 +6,8 @@
 //!
 //! 1. ddmin over whole messages ([`ddmin`]);
 //! 2. per message, ddmin over its tokens (the model's tokenizer splits it into literals, slot
-//!    values and derived fields; derived fields are recomputed when written back);
+//!    values and derived fields; derived fields are recomputed when written back; parts whose
+//!    loss would leave a peer waiting for the rest of a message are kept, see [`parts`]);
 //! 3. per message, each slot value replaced by the most common value of its pool;
 //! 4. ddmin over messages again, so the result is 1-minimal with respect to removing one
 //!    message (removing any single message makes the failure go away).
@@ -178,13 +179,14 @@ fn shrink_tokens<P: FnMut(&[Vec<u8>]) -> bool>(
     i: usize,
     tester: &mut Tester<P>,
 ) {
-    let Some(all) = parts::split(model, &current[i].bytes) else { return };
+    let Some(groups) = parts::groups(model, &current[i].bytes) else { return };
+    let removable: Vec<usize> = groups.iter().enumerate().filter(|(_, g)| !g.fixed).map(|(k, _)| k).collect();
     let mut candidate = bytes_of(current);
-    let kept = ddmin(all, &mut |ps: &[parts::OwnedPart]| {
-        candidate[i] = parts::write(ps);
+    let kept = ddmin(removable, &mut |kept: &[usize]| {
+        candidate[i] = parts::write_kept(&groups, kept);
         tester.test(&candidate)
     });
-    let bytes = parts::write(&kept);
+    let bytes = parts::write_kept(&groups, &kept);
     if bytes != current[i].bytes {
         current[i].bytes = bytes;
         current[i].edited = true;
