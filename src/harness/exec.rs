@@ -14,6 +14,9 @@ use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
 /// this only matters for one that escaped its group).
 const DRAIN_GRACE: Duration = Duration::from_millis(200);
 
+/// Inputs up to this size are written to stdin directly: a pipe holds at least one page.
+const SMALL_INPUT: usize = 4096;
+
 /// Runs the program once per trace with the trace's bytes on stdin, or in an owner-only
 /// temporary file whose path replaces `{file}` in the arguments (stdin is then empty).
 #[derive(Debug)]
@@ -67,11 +70,18 @@ impl Target for ExecTarget {
         let stdout = Collector::start(proc.child().stdout.take().expect("piped"), limit);
         let stderr = Collector::start(proc.child().stderr.take().expect("piped"), limit);
         if let Some(mut stdin) = proc.child().stdin.take() {
-            // A target that never reads would block this write; it ends when the group is killed.
-            std::thread::spawn(move || {
+            if input.len() <= SMALL_INPUT {
+                // Fits the pipe buffer: the write cannot block even if the target never reads.
                 let _ = stdin.write_all(&input);
-            });
+            } else {
+                // A target that never reads would block this write; it ends when the group is killed.
+                std::thread::spawn(move || {
+                    let _ = stdin.write_all(&input);
+                });
+            }
         }
+        // The end of stdout usually means the process is exiting; then its status comes at once.
+        stdout.wait_end(deadline);
         let end = match proc.wait_until(deadline) {
             Some(status) => ProcessEnd::from_status(status),
             None => {

@@ -182,6 +182,7 @@ impl TargetSpec {
     /// Builds the target of parallel job `job` (0-based). A TCP target of job `k` uses port
     /// `port + k`, so parallel jobs need a spawn command with `{port}`.
     pub fn build(&self, job: usize) -> Result<Box<dyn Target + Send>, HarnessError> {
+        sys::no_core_dumps();
         match &self.kind {
             TargetKind::Exec { command, per_message: false } => {
                 Ok(Box::new(exec::ExecTarget::new(command.clone(), self.clone())))

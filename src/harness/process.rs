@@ -8,9 +8,9 @@
 use std::collections::VecDeque;
 use std::io::Read;
 use std::process::{Child, Command, ExitStatus};
-use std::sync::mpsc::{self, Receiver, RecvTimeoutError};
+use std::sync::mpsc::{self, Receiver};
 use std::sync::{Arc, Mutex};
-use std::time::Instant;
+use std::time::{Duration, Instant};
 
 use super::sys::{self, Limits};
 
@@ -18,7 +18,6 @@ use super::sys::{self, Limits};
 #[derive(Debug)]
 pub struct Proc {
     child: Child,
-    exited: Receiver<()>,
     status: Option<ExitStatus>,
 }
 
@@ -26,14 +25,7 @@ impl Proc {
     /// Starts `cmd` in a new process group with `limits`.
     pub fn spawn(mut cmd: Command, limits: Limits) -> std::io::Result<Proc> {
         sys::confine(&mut cmd, limits);
-        let child = cmd.spawn()?;
-        let pid = child.id();
-        let (tx, rx) = mpsc::channel();
-        std::thread::spawn(move || {
-            sys::wait_exit_keep_zombie(pid);
-            let _ = tx.send(());
-        });
-        Ok(Proc { child, exited: rx, status: None })
+        Ok(Proc { child: cmd.spawn()?, status: None })
     }
 
     pub fn child(&mut self) -> &mut Child {
@@ -41,15 +33,23 @@ impl Proc {
     }
 
     /// The exit status if the child has exited by `deadline`, else `None` (it keeps running).
-    /// Once the child exits, the rest of its group is killed.
+    /// Once the child exits, the rest of its group is killed. Polls with growing naps (50 µs to
+    /// 5 ms): callers usually know the child is about to exit (its output ended).
     pub fn wait_until(&mut self, deadline: Instant) -> Option<ExitStatus> {
         if self.status.is_some() {
             return self.status;
         }
-        let left = deadline.saturating_duration_since(Instant::now());
-        match self.exited.recv_timeout(left) {
-            Ok(()) | Err(RecvTimeoutError::Disconnected) => Some(self.reap()),
-            Err(RecvTimeoutError::Timeout) => None,
+        let mut nap = Duration::from_micros(50);
+        loop {
+            if sys::has_exited(self.child.id(), false) {
+                return Some(self.reap());
+            }
+            let now = Instant::now();
+            if now >= deadline {
+                return None;
+            }
+            std::thread::sleep(nap.min(deadline - now));
+            nap = (nap * 2).min(Duration::from_millis(5));
         }
     }
 
@@ -64,7 +64,7 @@ impl Proc {
             return s;
         }
         sys::kill_group(self.child.id());
-        let _ = self.exited.recv();
+        sys::has_exited(self.child.id(), true);
         self.reap()
     }
 
@@ -187,9 +187,14 @@ impl Collector {
     /// Waits for the end of the stream until `deadline` (a process that escaped its group may
     /// hold the pipe open), then returns what was kept.
     pub fn finish(&self, deadline: Instant) -> Captured {
-        let left = deadline.saturating_duration_since(Instant::now());
-        let _ = self.done.recv_timeout(left);
+        self.wait_end(deadline);
         self.snapshot()
+    }
+
+    /// Waits until the stream ends or `deadline`; true if it ended.
+    pub fn wait_end(&self, deadline: Instant) -> bool {
+        let left = deadline.saturating_duration_since(Instant::now());
+        !matches!(self.done.recv_timeout(left), Err(mpsc::RecvTimeoutError::Timeout))
     }
 
     /// What was kept so far.

@@ -24,19 +24,26 @@ pub fn kill_group(pgid: u32) {
     }
 }
 
-/// Blocks until child `pid` has exited, leaving it a zombie (not reaped): its process id stays
-/// reserved until `Child::wait` reaps it, so killing its group afterwards is safe.
-pub fn wait_exit_keep_zombie(pid: u32) {
+/// Whether child `pid` has exited, leaving it a zombie (not reaped): its process id stays
+/// reserved until `Child::wait` reaps it, so killing its group afterwards is safe. With `block`,
+/// waits until it exits. A pid that is not (or no longer) our child counts as exited.
+pub fn has_exited(pid: u32, block: bool) -> bool {
     // id_t is the unsigned type of process ids: a u32 pid always fits.
     let pid = pid as libc::id_t;
+    let flags = libc::WEXITED | libc::WNOWAIT | if block { 0 } else { libc::WNOHANG };
     loop {
-        // SAFETY: waitid(2) writes only into `info`, a zeroed siginfo_t we own.
-        let rc = unsafe {
+        // SAFETY: waitid(2) writes only into `info`, a zeroed siginfo_t we own; si_pid reads the
+        // field waitid filled (it stays 0 when WNOHANG found no exited child).
+        let (rc, exited_pid) = unsafe {
             let mut info: libc::siginfo_t = std::mem::zeroed();
-            libc::waitid(libc::P_PID, pid, &mut info, libc::WEXITED | libc::WNOWAIT)
+            let rc = libc::waitid(libc::P_PID, pid, &mut info, flags);
+            (rc, info.si_pid())
         };
-        if rc == 0 || std::io::Error::last_os_error().raw_os_error() != Some(libc::EINTR) {
-            return;
+        if rc == 0 {
+            return exited_pid != 0;
+        }
+        if std::io::Error::last_os_error().raw_os_error() != Some(libc::EINTR) {
+            return true;
         }
     }
 }
@@ -48,15 +55,19 @@ pub struct Limits {
     pub memory_bytes: Option<u64>,
 }
 
-/// Applies `limits` to the calling process and turns off core dumps (a crashing target would
-/// otherwise write one per run). Called between fork and exec, so it uses only setrlimit(2),
-/// which is async-signal-safe.
+/// Applies `limits` to the calling process. Called between fork and exec, so it uses only
+/// setrlimit(2), which is async-signal-safe.
 pub fn apply_limits(limits: Limits) -> std::io::Result<()> {
-    set_limit(libc::RLIMIT_CORE, 0)?;
     if let Some(bytes) = limits.memory_bytes {
         set_limit(libc::RLIMIT_AS, bytes)?;
     }
     Ok(())
+}
+
+/// Turns off core dumps for this process and so for every target it starts (a crashing target
+/// would otherwise write one per run).
+pub fn no_core_dumps() {
+    let _ = set_limit(libc::RLIMIT_CORE, 0);
 }
 
 #[cfg(target_os = "linux")]
@@ -128,9 +139,14 @@ pub fn signal_name(signal: i32) -> String {
 
 /// Makes `cmd` start its child in a new process group (whose id is the child's pid) with
 /// `limits` applied, so the whole group can be killed and no limit leaks into tracewalk.
+/// Without limits no code runs between fork and exec, which lets std use posix_spawn (much
+/// faster than fork for each run).
 pub fn confine(cmd: &mut std::process::Command, limits: Limits) {
     use std::os::unix::process::CommandExt;
     cmd.process_group(0);
+    if limits == Limits::default() {
+        return;
+    }
     // SAFETY: the closure runs between fork and exec and only calls setrlimit(2), which is
     // async-signal-safe; it allocates nothing and touches no lock.
     unsafe {
