@@ -155,7 +155,11 @@ impl Hub {
             }
             ("UNSUB", _) => {
                 let zone = Hub::zone(words)?;
-                let at = self.subs.iter().position(|&z| z == zone).ok_or(format!("ERR 409 not subscribed zone={zone}"))?;
+                let at = self
+                    .subs
+                    .iter()
+                    .position(|&z| z == zone)
+                    .ok_or(format!("ERR 409 not subscribed zone={zone}"))?;
                 self.subs.remove(at);
                 out.push_str(&format!("OK UNSUB zone={zone}\n"));
             }
@@ -203,7 +207,8 @@ impl Hub {
             ("SCENE", Some("RECALL")) => {
                 let text = arg(words, "id").ok_or("ERR 400 missing id")?;
                 let id: u32 = text.parse().map_err(|_| format!("ERR 400 bad id={text}"))?;
-                let scene = self.scenes.iter().find(|s| s.id == id).ok_or(format!("ERR 404 no scene id={id}"))?;
+                let scene =
+                    self.scenes.iter().find(|s| s.id == id).ok_or(format!("ERR 404 no scene id={id}"))?;
                 let levels = scene.levels;
                 self.levels = levels;
                 self.fades.clear();

@@ -99,7 +99,10 @@ impl Connection {
 
     fn handle(&mut self, r: &Request) -> (u16, String) {
         let segments: Vec<&str> = r.path.trim_start_matches('/').split('/').collect();
-        let needs_auth = !matches!((r.method.as_str(), segments.as_slice()), ("POST", ["v1", "sessions"]) | ("GET", ["v1", "products", ..]));
+        let needs_auth = !matches!(
+            (r.method.as_str(), segments.as_slice()),
+            ("POST", ["v1", "sessions"]) | ("GET", ["v1", "products", ..])
+        );
         if needs_auth && !(r.authorized && self.authenticated) {
             return error(401, "unauthorized");
         }
@@ -121,16 +124,27 @@ impl Connection {
                     r.query.split('&').find_map(|kv| kv.strip_prefix(name).and_then(|v| v.strip_prefix('=')))
                 };
                 let category = param("category").unwrap_or("bread");
-                let Some(c) = CATEGORIES.iter().position(|&k| k == category) else { return error(400, "unknown_category") };
+                let Some(c) = CATEGORIES.iter().position(|&k| k == category) else {
+                    return error(400, "unknown_category");
+                };
                 let page: u32 = match param("page").unwrap_or("1").parse() {
                     Ok(p) if (1..=9).contains(&p) => p,
                     _ => return error(400, "invalid_page"),
                 };
                 let first = 101 + c as u32 * 15 + (page - 1) * 3;
                 let items: Vec<String> = (first..first + 3)
-                    .filter_map(|id| price_cents(id).map(|p| format!("{{\"id\":{id},\"price\":{}.{:02}}}", p / 100, p % 100)))
+                    .filter_map(|id| {
+                        price_cents(id)
+                            .map(|p| format!("{{\"id\":{id},\"price\":{}.{:02}}}", p / 100, p % 100))
+                    })
                     .collect();
-                reply(200, &format!("{{\"category\":\"{category}\",\"page\":{page},\"items\":[{}]}}", items.join(",")))
+                reply(
+                    200,
+                    &format!(
+                        "{{\"category\":\"{category}\",\"page\":{page},\"items\":[{}]}}",
+                        items.join(",")
+                    ),
+                )
             }
             ("GET", ["v1", "products", id]) => match id.parse().ok().and_then(price_cents) {
                 Some(p) => reply(200, &format!("{{\"id\":{id},\"price\":{}.{:02}}}", p / 100, p % 100)),
@@ -142,7 +156,10 @@ impl Connection {
                 reply(201, &format!("{{\"cart_id\":{},\"customer_id\":{customer}}}", 70001))
             }
             ("GET", ["v1", "carts", _]) => match &self.cart {
-                Some(c) => reply(200, &format!("{{\"cart_id\":70001,\"lines\":{},\"closed\":{}}}", c.lines.len(), c.closed)),
+                Some(c) => reply(
+                    200,
+                    &format!("{{\"cart_id\":70001,\"lines\":{},\"closed\":{}}}", c.lines.len(), c.closed),
+                ),
                 None => error(404, "cart_not_found"),
             },
             ("POST", ["v1", "carts", _, "items"]) => {
@@ -150,7 +167,8 @@ impl Connection {
                 if cart.closed {
                     return error(409, "cart_closed");
                 }
-                let Some(product) = json_value(&body, "product_id").and_then(|v| v.parse::<u32>().ok()) else {
+                let Some(product) = json_value(&body, "product_id").and_then(|v| v.parse::<u32>().ok())
+                else {
                     return error(400, "bad_request");
                 };
                 let Some(price) = price_cents(product) else { return error(404, "product_not_found") };
@@ -201,12 +219,29 @@ impl Connection {
                     total = total.strict_add(l.price_cents.strict_mul(l.qty));
                 }
                 cart.closed = true;
-                let lines = cart.lines.iter().map(|l| Line { product: l.product, qty: l.qty, price_cents: l.price_cents }).collect();
+                let lines = cart
+                    .lines
+                    .iter()
+                    .map(|l| Line { product: l.product, qty: l.qty, price_cents: l.price_cents })
+                    .collect();
                 self.order = Some(Order { lines, total_cents: total, paid: false });
-                reply(201, &format!("{{\"order_id\":880001,\"customer_id\":{customer},\"total\":{}.{:02}}}", total / 100, total % 100))
+                reply(
+                    201,
+                    &format!(
+                        "{{\"order_id\":880001,\"customer_id\":{customer},\"total\":{}.{:02}}}",
+                        total / 100,
+                        total % 100
+                    ),
+                )
             }
             ("GET", ["v1", "orders", _]) | ("GET", ["v1", "orders", _, "status"]) => match &self.order {
-                Some(o) => reply(200, &format!("{{\"order_id\":880001,\"status\":\"{}\"}}", if o.paid { "baking" } else { "awaiting_payment" })),
+                Some(o) => reply(
+                    200,
+                    &format!(
+                        "{{\"order_id\":880001,\"status\":\"{}\"}}",
+                        if o.paid { "baking" } else { "awaiting_payment" }
+                    ),
+                ),
                 None => error(404, "order_not_found"),
             },
             ("POST", ["v1", "orders", _, "payment"]) => match &mut self.order {
@@ -227,7 +262,11 @@ fn read_request(reader: &mut BufReader<TcpStream>) -> Result<Option<Request>, &'
     let mut head = Vec::new();
     loop {
         let mut line = Vec::new();
-        let n = reader.by_ref().take((MAX_HEAD - head.len()) as u64 + 1).read_until(b'\n', &mut line).map_err(|_| "read")?;
+        let n = reader
+            .by_ref()
+            .take((MAX_HEAD - head.len()) as u64 + 1)
+            .read_until(b'\n', &mut line)
+            .map_err(|_| "read")?;
         if n == 0 {
             return if head.is_empty() { Ok(None) } else { Err("truncated head") };
         }
@@ -245,12 +284,20 @@ fn read_request(reader: &mut BufReader<TcpStream>) -> Result<Option<Request>, &'
     let text = String::from_utf8_lossy(&head).into_owned();
     let mut lines = text.lines();
     let mut start = lines.next().unwrap_or("").split(' ');
-    let (method, target, version) = (start.next().unwrap_or(""), start.next().unwrap_or(""), start.next().unwrap_or(""));
+    let (method, target, version) =
+        (start.next().unwrap_or(""), start.next().unwrap_or(""), start.next().unwrap_or(""));
     if method.is_empty() || !target.starts_with('/') || !version.starts_with("HTTP/1.") {
         return Err("bad request line");
     }
     let (path, query) = target.split_once('?').unwrap_or((target, ""));
-    let mut request = Request { method: method.into(), path: path.into(), query: query.into(), authorized: false, close: false, body: Vec::new() };
+    let mut request = Request {
+        method: method.into(),
+        path: path.into(),
+        query: query.into(),
+        authorized: false,
+        close: false,
+        body: Vec::new(),
+    };
     let (mut length, mut chunked) = (0usize, false);
     for field in lines {
         let Some((name, value)) = field.split_once(':') else { continue };
@@ -267,7 +314,8 @@ fn read_request(reader: &mut BufReader<TcpStream>) -> Result<Option<Request>, &'
         loop {
             let mut size_line = String::new();
             reader.by_ref().take(64).read_line(&mut size_line).map_err(|_| "read")?;
-            let size = usize::from_str_radix(size_line.trim().split(';').next().unwrap_or(""), 16).map_err(|_| "bad chunk size")?;
+            let size = usize::from_str_radix(size_line.trim().split(';').next().unwrap_or(""), 16)
+                .map_err(|_| "bad chunk size")?;
             if request.body.len() + size > MAX_BODY {
                 return Err("body too large");
             }

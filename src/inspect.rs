@@ -71,6 +71,8 @@ pub struct Summary {
     pub literals: usize,
     pub slot_classes: Vec<String>,
     pub templates: usize,
+    /// Templates frequent enough to be their own symbol in the session chain.
+    pub frequent_templates: usize,
     pub session_chain: ChainSummary,
     pub message_chain: ChainSummary,
     pub top_templates: Vec<Successor>,
@@ -105,12 +107,13 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
         discount: model.settings.discount,
         parts: Parts::All,
     };
-    let session_chain = chain_summary(&model.session_chain, model.session_symbols(), &config);
+    let session_grams = model.session_chain_grams();
+    let session_chain = chain_summary(&session_grams, model.session_symbols(), &config);
     let message_chain = chain_summary(&model.message_chain, model.token_symbols(), &config);
-    let chain = Chain::build(&model.session_chain, model.session_symbols(), &config);
+    let chain = Chain::build(&session_grams, model.session_symbols(), &config);
 
     // Template frequencies: unigram marginal of the session table.
-    let unigrams = model.session_chain.marginal(0);
+    let unigrams = session_grams.marginal(0);
     let total: u64 = unigrams.counts.iter().map(|c| c[0] + c[1]).sum();
     let mut top_templates: Vec<Successor> = unigrams
         .rows()
@@ -125,9 +128,9 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
     top_templates.truncate(top);
 
     // Most frequent contexts of the top order with their likeliest successors.
-    let order = model.session_chain.order;
+    let order = session_grams.order;
     let mut contexts: Vec<(Vec<u32>, u64)> = Vec::new();
-    for (g, c) in model.session_chain.rows() {
+    for (g, c) in session_grams.rows() {
         let ctx = &g[..order];
         match contexts.last_mut() {
             Some((last, n)) if last.as_slice() == ctx => *n += c[0] + c[1],
@@ -191,6 +194,7 @@ pub fn summarize(model: &Model, hash: &str, top: usize) -> Summary {
             })
             .collect(),
         templates: model.templates.len(),
+        frequent_templates: model.frequent_templates().iter().filter(|&&f| f).count(),
         session_chain,
         message_chain,
         top_templates,
@@ -234,7 +238,7 @@ pub fn dot(model: &Model) -> String {
         discount: model.settings.discount,
         parts: Parts::All,
     };
-    let grams = model.session_chain.marginal(1);
+    let grams = model.session_chain_grams().marginal(1);
     let chain = Chain::build(&grams, model.session_symbols(), &config);
     let quote = |s: &str| {
         let short: String =

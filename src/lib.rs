@@ -12,6 +12,7 @@
 pub mod atomic;
 pub mod chain;
 pub mod escape;
+pub mod feed;
 pub mod generate;
 pub mod harness;
 pub mod hunt;

@@ -358,6 +358,45 @@ impl Chain {
         self.uniform(rng)
     }
 
+    /// The deepest level whose context (the last symbols of `history`) was seen, with its node.
+    fn longest_seen(&self, window: &[u32]) -> Option<(usize, &Node)> {
+        (0..=self.order).rev().find_map(|k| self.node(window, k).map(|n| (k, n)))
+    }
+
+    /// Draws the next symbol from the maximum-likelihood distribution c(h,w)/c(h) of the
+    /// longest context `h` of `history` seen in training (staying on learned transitions; the
+    /// smoothing mass for unseen steps is not used). O(1): for Kneser–Ney the alias table over
+    /// c−D is mixed with a uniform draw over the successors, since c/N = (c−D)/N + D/N.
+    #[inline]
+    pub fn sample_seen<R: Rng + ?Sized>(&self, history: &[u32], rng: &mut R) -> u32 {
+        let mut buf = [0u32; 16];
+        let window = self.window(history, &mut buf);
+        let Some((k, node)) = self.longest_seen(window) else { return self.uniform(rng) };
+        let (s, n) = (node.start as usize, node.len as usize);
+        let d = self.levels[k].discount;
+        if d > 0.0 {
+            let coin = (rng.next_u64() >> 11) as f64 * (1.0 / (1u64 << 53) as f64);
+            if coin * node.denom < d * n as f64 {
+                let i = (((rng.next_u64() >> 32) * n as u64) >> 32) as usize;
+                return self.succ[s + i];
+            }
+        }
+        let i = alias::draw(&self.prob[s..s + n], &self.alias[s..s + n], rng.next_u64());
+        self.succ[s + i]
+    }
+
+    /// The successors of the longest seen context of `history` with their maximum-likelihood
+    /// probabilities, into `out` (sorted by symbol).
+    pub fn seen_distribution(&self, history: &[u32], out: &mut Vec<(u32, f64)>) {
+        out.clear();
+        let mut buf = [0u32; 16];
+        let window = self.window(history, &mut buf);
+        let Some((_, node)) = self.longest_seen(window) else { return };
+        let (s, n) = (node.start as usize, node.len as usize);
+        let total: f64 = self.count[s..s + n].iter().map(|&c| c as f64).sum();
+        out.extend((s..s + n).map(|i| (self.succ[i], self.count[i] as f64 / total)));
+    }
+
     /// The same distribution as [`Chain::sample`], drawn by a cumulative linear scan over each
     /// context's successors: the baseline the alias method is measured against.
     pub fn sample_linear<R: Rng + ?Sized>(&self, history: &[u32], rng: &mut R) -> u32 {
@@ -475,11 +514,98 @@ impl Chain {
         mult / (self.symbols - 1) as f64
     }
 
-    /// Seen successors of exactly this context at the top level, with raw counts.
+    /// Maximum-likelihood estimate c(h,w)/c(h) at the top order (counts as stored; for
+    /// Kneser–Ney lower levels are not involved). `None` when the context was never seen.
+    pub fn ml_prob(&self, history: &[u32], w: u32) -> Option<f64> {
+        let mut buf = [0u32; 16];
+        let window = self.window(history, &mut buf);
+        let node = self.node(window, self.order)?;
+        let (s, n) = (node.start as usize, node.len as usize);
+        let total: f64 = self.count[s..s + n].iter().map(|&c| c as f64).sum();
+        let c = self.succ[s..s + n].binary_search(&w).map_or(0.0, |i| self.count[s + i] as f64);
+        Some(c / total)
+    }
+
+    /// Seen successors of exactly this context, with the counts its level uses (raw at the top
+    /// level; for Kneser–Ney, continuation counts below). The level is the context's length;
+    /// empty when that level does not store the context or the context is longer than the order.
     pub fn successors(&self, context: &[u32]) -> Vec<(u32, u64)> {
-        let Some(node) = self.levels[self.order].find(context) else { return Vec::new() };
+        let Some(node) = self.levels.get(context.len()).and_then(|l| l.find(context)) else {
+            return Vec::new();
+        };
         let (s, n) = (node.start as usize, node.len as usize);
         (s..s + n).map(|i| (self.succ[i], self.count[i] as u64)).collect()
+    }
+
+    /// The contexts stored at level `len` (contexts of exactly `len` symbols), each with its
+    /// seen successors (sorted). Empty for a level that is not built. At the top level these
+    /// pairs are the chain's learned transitions: the distinct (order+1)-grams of the training
+    /// sequences, padding and end included.
+    pub fn contexts_of_len(&self, len: usize) -> impl Iterator<Item = (&[u32], &[u32])> + '_ {
+        let level = self.levels.get(len);
+        level.into_iter().flat_map(move |l| {
+            l.nodes.iter().enumerate().map(move |(i, node)| {
+                let (s, n) = (node.start as usize, node.len as usize);
+                (&l.ctx[i * l.len..(i + 1) * l.len], &self.succ[s..s + n])
+            })
+        })
+    }
+
+    /// The next-step distribution after exactly `context` (not padded: only `context` and its
+    /// suffixes are looked up, longest first, as [`Chain::prob`] does with a padded window), split
+    /// by where the mass comes from:
+    ///
+    /// ```text
+    /// P(w) = floor + base · empty_context_alpha()[w] + upper(w)
+    /// ```
+    ///
+    /// `upper` receives the terms of levels with non-empty contexts (sorted by symbol, merged);
+    /// returns `(floor, base)`. The split lets algorithms that visit many contexts share the dense
+    /// empty-context part and touch only the sparse rest: O(order + successors) per call.
+    pub fn split_distribution(&self, context: &[u32], upper: &mut Vec<(u32, f64)>) -> (f64, f64) {
+        upper.clear();
+        let top = context.len().min(self.order);
+        let context = &context[context.len() - top..];
+        let mut mult = 1.0;
+        let mut base = 0.0;
+        for k in (0..=top).rev() {
+            let Some(node) = self.levels[k].find(&context[top - k..]) else { continue };
+            if k == 0 {
+                base = mult;
+            } else {
+                let d = self.levels[k].discount;
+                let (s, n) = (node.start as usize, node.len as usize);
+                for i in s..s + n {
+                    let a = (self.count[i] as f64 - d).max(0.0) / node.denom;
+                    upper.push((self.succ[i], mult * a));
+                }
+            }
+            mult *= node.gamma;
+        }
+        upper.sort_unstable_by_key(|e| e.0);
+        upper.dedup_by(|b, a| {
+            if a.0 == b.0 {
+                a.1 += b.1;
+                true
+            } else {
+                false
+            }
+        });
+        (mult / (self.symbols - 1) as f64, base)
+    }
+
+    /// α of every symbol at the empty context (dense, indexed by symbol); all zero when the
+    /// empty-context level is not built (add-one smoothing).
+    pub fn empty_context_alpha(&self) -> Vec<f64> {
+        let mut out = vec![0.0; self.symbols as usize];
+        if let Some(node) = self.levels[0].find(&[]) {
+            let d = self.levels[0].discount;
+            let (s, n) = (node.start as usize, node.len as usize);
+            for i in s..s + n {
+                out[self.succ[i] as usize] = (self.count[i] as f64 - d).max(0.0) / node.denom;
+            }
+        }
+        out
     }
 }
 
@@ -526,6 +652,34 @@ mod tests {
     }
 
     #[test]
+    fn split_distribution_adds_up_to_prob_for_every_method() {
+        let seqs: &[&[u32]] = &[&[2, 3, 4], &[2, 4, 4, 3], &[3, 2]];
+        for smoothing in [Smoothing::KneserNey, Smoothing::WittenBell, Smoothing::AddOne] {
+            let c = chain(seqs, 2, smoothing, 7);
+            let base_alpha = c.empty_context_alpha();
+            let mut upper = Vec::new();
+            // Contexts of full length equal padded histories; the seen ones are exact states.
+            for (context, history) in
+                [(&[0, 0][..], &[][..]), (&[0, 2], &[2]), (&[2, 3], &[2, 3]), (&[6, 6], &[6, 6])]
+            {
+                let (floor, base) = c.split_distribution(context, &mut upper);
+                for w in 1..7u32 {
+                    let explicit = upper.iter().find(|e| e.0 == w).map_or(0.0, |e| e.1);
+                    let p = floor + base * base_alpha[w as usize] + explicit;
+                    assert!((p - c.prob(history, w)).abs() < 1e-12, "{smoothing:?} {context:?} {w}");
+                }
+            }
+        }
+        let c = chain(seqs, 2, Smoothing::KneserNey, 7);
+        let top: Vec<(Vec<u32>, Vec<u32>)> =
+            c.contexts_of_len(2).map(|(ctx, succ)| (ctx.to_vec(), succ.to_vec())).collect();
+        assert!(top.contains(&(vec![0, 0], vec![2, 3])));
+        // After 2: 3 and 4 (each preceded only by the padding) and the end (preceded by 3), so
+        // every continuation count is 1 although 2→4 and 2→3 occur once each and 2→end once.
+        assert_eq!(c.successors(&[2]), vec![(1, 1), (3, 1), (4, 1)], "continuation counts at level 1");
+    }
+
+    #[test]
     fn unseen_steps_keep_probability() {
         let c = chain(&[&[2, 3], &[2, 3]], 1, Smoothing::KneserNey, 5);
         assert!(c.prob(&[2], 4) > 0.0);
@@ -549,5 +703,25 @@ mod tests {
             }
         }
         assert_eq!(a[0] + b[0], 0, "BEGIN is never drawn");
+    }
+
+    #[test]
+    fn seen_sampling_follows_longest_context_counts() {
+        use rand::SeedableRng;
+        for smoothing in [Smoothing::KneserNey, Smoothing::WittenBell] {
+            // After [2, 3]: 4 twice, 5 once, END once.
+            let c = chain(&[&[2, 3, 4], &[2, 3, 4], &[2, 3, 5], &[2, 3]], 2, smoothing, 7);
+            let mut rng = rand_xoshiro::Xoshiro256PlusPlus::seed_from_u64(9);
+            let mut seen = [0u32; 7];
+            for _ in 0..100_000 {
+                seen[c.sample_seen(&[2, 3], &mut rng) as usize] += 1;
+            }
+            for (w, p) in [(4, 0.5), (5, 0.25), (1, 0.25)] {
+                assert!((seen[w] as f64 / 100_000.0 - p).abs() < 0.01, "{smoothing:?} {w}: {}", seen[w]);
+            }
+            assert_eq!(seen[2] + seen[3] + seen[6], 0, "never an unseen step");
+            // Unseen context [6]: falls back to the longest seen suffix (the empty context).
+            assert_ne!(c.sample_seen(&[6], &mut rng), 0);
+        }
     }
 }

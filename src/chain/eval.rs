@@ -88,3 +88,28 @@ pub fn pick_order(
         .map_or(fallback.min(grams.order).max(1.min(grams.order)), |b| b.0);
     (scores, best)
 }
+
+/// Stationary distribution of a first-order chain restricted to `states`: the transition matrix
+/// P(j | i) over `states` (each row renormalised over `states`) is iterated from the uniform
+/// distribution until it moves less than 1e-13 (at most 100 000 steps).
+pub fn stationary(chain: &Chain, states: &[u32]) -> Vec<f64> {
+    let n = states.len();
+    let matrix: Vec<Vec<f64>> = states
+        .iter()
+        .map(|&i| {
+            let row: Vec<f64> = states.iter().map(|&j| chain.prob(&[i], j)).collect();
+            let total: f64 = row.iter().sum();
+            row.into_iter().map(|p| p / total).collect()
+        })
+        .collect();
+    let mut pi = vec![1.0 / n as f64; n];
+    for _ in 0..100_000 {
+        let next: Vec<f64> = (0..n).map(|j| (0..n).map(|i| pi[i] * matrix[i][j]).sum()).collect();
+        let moved: f64 = next.iter().zip(&pi).map(|(a, b)| (a - b).abs()).sum();
+        pi = next;
+        if moved < 1e-13 {
+            break;
+        }
+    }
+    pi
+}

@@ -18,6 +18,6 @@ mod counts;
 mod eval;
 
 pub use alias::AliasTable;
-pub use build::{Chain, ChainConfig, Parts, Smoothing};
+pub use build::{Chain, ChainConfig, LevelTerm, Parts, Smoothing};
 pub use counts::{GramCounter, Grams, Part};
-pub use eval::{OrderScore, cross_entropy, entropy_rate, pick_order};
+pub use eval::{OrderScore, cross_entropy, entropy_rate, pick_order, stationary};

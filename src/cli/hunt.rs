@@ -4,7 +4,7 @@ use std::io::IsTerminal;
 use std::path::PathBuf;
 use std::time::Duration;
 
-use tracewalk::generate::{GenOptions, Generator, Mode};
+use tracewalk::generate::{GenOptions, Generator, HostileLibrary, Mode};
 use tracewalk::harness::oracle::describe;
 use tracewalk::harness::{Failure, Target, interrupt_flag};
 use tracewalk::hunt::{self, Finding, HuntOptions, ModelSource, Observer, Progress, Store, Summary};
@@ -18,12 +18,27 @@ pub struct Args {
     model: PathBuf,
     #[command(flatten)]
     target: TargetArgs,
-    /// What to generate (plausible, or another mode of `tracewalk gen`).
+    /// What to generate: plausible, rare, novel, frontier or tour (as `tracewalk gen`).
     #[arg(long, default_value = "plausible")]
     mode: Mode,
     /// Next-step weights become p^(1/T): below 1 sharpens, above 1 flattens.
     #[arg(long, default_value_t = 1.0)]
     temperature: f64,
+    /// Rare mode: probability per session step of a forced step into the tail.
+    #[arg(long, default_value_t = 0.05, value_name = "R")]
+    rare_rate: f64,
+    /// Rare mode: at least this many forced steps per trace (0: the plain per-step process).
+    #[arg(long, default_value_t = 1, value_name = "N")]
+    rare_min: u32,
+    /// Rare mode: probability per slot of a hostile value (default: the rare rate).
+    #[arg(long, value_name = "R")]
+    hostile_rate: Option<f64>,
+    /// Rare mode: a YAML file of hostile values added to the built-in ones.
+    #[arg(long, value_name = "FILE")]
+    hostile: Option<PathBuf>,
+    /// Rare mode: no hostile values, only forced steps.
+    #[arg(long, conflicts_with = "hostile")]
+    no_hostile: bool,
     /// Longest trace in messages.
     #[arg(long, default_value_t = 200)]
     max_messages: usize,
@@ -88,7 +103,12 @@ impl Observer for Console {
     fn found(&mut self, f: &Finding) {
         let what = match (&f.shrunk, f.flaky) {
             (_, true) => "flaky (did not fail again on a rerun), not shrunk".to_string(),
-            (Some(t), false) => format!("shrunk {} → {} messages in {} runs", f.original_messages, t.messages.len(), f.shrink_runs),
+            (Some(t), false) => format!(
+                "shrunk {} → {} messages in {} runs",
+                f.original_messages,
+                t.messages.len(),
+                f.shrink_runs
+            ),
             (None, false) => "not shrunk".to_string(),
         };
         let place = f.dir.as_ref().map(|d| format!("; stored in {}", d.display())).unwrap_or_default();
@@ -99,20 +119,37 @@ impl Observer for Console {
 pub fn run(a: Args) -> anyhow::Result<i32> {
     anyhow::ensure!(a.jobs >= 1, "--jobs must be at least 1");
     anyhow::ensure!(a.budget.is_none_or(|b| b >= 1), "--budget must be at least 1");
-    let (model, hash) = tracewalk::model::load_with_hash(&a.model)?;
-    let learned = hunt::learned_transitions(&model);
-    let compiled = tracewalk::model::Compiled::new(model, hash)?;
+    let compiled = super::load_compiled(&a.model)?;
     let format = compiled.tokenizer.format();
     let spec = a.target.spec(format)?;
     let mut targets: Vec<Box<dyn Target + Send>> =
         (0..a.jobs).map(|job| spec.build(job)).collect::<Result<_, _>>()?;
-    let options = GenOptions { mode: a.mode, temperature: a.temperature, max_messages: a.max_messages, ..GenOptions::default() };
+    let hostile = if a.no_hostile {
+        None
+    } else if let Some(path) = &a.hostile {
+        let text = std::fs::read_to_string(path)
+            .map_err(|e| anyhow::anyhow!("{}: cannot read: {e}", path.display()))?;
+        Some(std::sync::Arc::new(HostileLibrary::from_yaml(&text, &path.display().to_string())?))
+    } else {
+        Some(HostileLibrary::builtin())
+    };
+    let options = GenOptions {
+        mode: a.mode,
+        temperature: a.temperature,
+        max_messages: a.max_messages,
+        rare_rate: a.rare_rate,
+        rare_min: a.rare_min,
+        hostile_rate: a.hostile_rate,
+        hostile,
+        ..GenOptions::default()
+    };
     let generator = Generator::new(&compiled, options)?;
-    let mut source = ModelSource::new(generator, a.seed, learned);
+    let mut source = ModelSource::new(generator, a.seed);
     let identity = tracewalk::hunt::TraceSource::identity(&source);
     let (store, resume) = Store::open(&a.output, &identity, &targets[0].describe())?;
     let stop = interrupt_flag();
-    let program = std::env::current_exe().map(|p| p.display().to_string()).unwrap_or_else(|_| "tracewalk".into());
+    let program =
+        std::env::current_exe().map(|p| p.display().to_string()).unwrap_or_else(|_| "tracewalk".into());
     let hunt_options = HuntOptions {
         runs: a.budget,
         time: a.time.map(Duration::from_millis),
@@ -212,7 +249,12 @@ fn print_summary(s: &Summary, dir: &std::path::Path, brief: bool) {
         println!("no failures found; campaign directory {}", dir.display());
         return;
     }
-    println!("{} finding{} in {}:", s.findings.len(), if s.findings.len() == 1 { "" } else { "s" }, dir.display());
+    println!(
+        "{} finding{} in {}:",
+        s.findings.len(),
+        if s.findings.len() == 1 { "" } else { "s" },
+        dir.display()
+    );
     for (i, f) in s.findings.iter().enumerate() {
         println!();
         println!("{}. {}", i + 1, f.signature());
@@ -221,10 +263,20 @@ fn print_summary(s: &Summary, dir: &std::path::Path, brief: bool) {
         }
         let shrunk = match (&f.shrunk, f.flaky) {
             (_, true) => "flaky: did not fail again on a rerun".to_string(),
-            (Some(t), _) => format!("shrunk from {} to {} messages in {} runs", f.original_messages, t.messages.len(), f.shrink_runs),
+            (Some(t), _) => format!(
+                "shrunk from {} to {} messages in {} runs",
+                f.original_messages,
+                t.messages.len(),
+                f.shrink_runs
+            ),
             (None, _) => format!("{} messages, not shrunk", f.original_messages),
         };
-        println!("   first at run {}, {} run{} in all; {shrunk}", f.first_run, f.hits, if f.hits == 1 { "" } else { "s" });
+        println!(
+            "   first at run {}, {} run{} in all; {shrunk}",
+            f.first_run,
+            f.hits,
+            if f.hits == 1 { "" } else { "s" }
+        );
         if let Some(d) = &f.dir {
             println!("   replay: sh {}", d.join("replay.sh").display());
         }

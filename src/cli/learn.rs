@@ -47,6 +47,9 @@ pub struct Args {
     /// Most distinct values kept per slot pool.
     #[arg(long, default_value_t = 256)]
     pool_cap: usize,
+    /// Templates seen fewer times are one "novel message" symbol in the session chain.
+    #[arg(long, default_value_t = 2)]
+    min_template_count: u64,
     /// Write the compact binary encoding instead of YAML.
     #[arg(long)]
     binary: bool,
@@ -72,6 +75,7 @@ fn parse_order(text: &str, max: usize) -> anyhow::Result<(OrderChoice, OrderChoi
 
 pub fn run(a: Args) -> anyhow::Result<i32> {
     anyhow::ensure!((1..=8).contains(&a.max_order), "--max-order must be within 1..=8");
+    anyhow::ensure!(a.min_template_count >= 1, "--min-template-count must be at least 1");
     anyhow::ensure!(a.pool_cap >= 1 && a.pool_cap <= 1 << 20, "--pool-cap must be within 1..=1048576");
     if let Some(d) = a.discount {
         anyhow::ensure!(d > 0.0 && d <= 1.0, "--discount must be within (0, 1]");
@@ -126,6 +130,7 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
         smoothing: a.smoothing,
         discount: a.discount,
         pool_cap: a.pool_cap,
+        min_template_count: a.min_template_count,
         rules,
     };
     let (model, report) = tracewalk::model::learn(&corpus, &learn_options, Some(&progress))?;

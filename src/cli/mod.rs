@@ -3,8 +3,10 @@
 mod gen_cmd;
 mod hunt;
 mod learn;
+mod mutate;
 mod replay;
 mod score;
+mod seed;
 mod show;
 mod target;
 
@@ -28,6 +30,8 @@ enum Command {
     Show(show::Args),
     /// Generate traces from a model.
     Gen(gen_cmd::Args),
+    /// Edit traces or captured traffic with operators the model vouches for.
+    Mutate(mutate::Args),
     /// Print each message's surprise under a model and flag the unusual ones.
     Score(score::Args),
     /// Drive a target with generated traces; keep, shrink and store every distinct failure.
@@ -36,10 +40,20 @@ enum Command {
     Replay(replay::ReplayArgs),
     /// Shrink a failing trace (or raw session) to a small one that fails the same way.
     Shrink(replay::ShrinkArgs),
+    /// Write generated traces as a seed corpus for a coverage-guided engine (raw bytes, one
+    /// file per trace, named by content hash).
+    Seed(seed::Args),
     /// Add models learned on separate shards of data.
     Merge(MergeArgs),
     /// Print the built-in slot rules (a starting point for a rules file of your own).
-    Rules,
+    Rules(RulesArgs),
+}
+
+#[derive(Debug, clap::Args)]
+struct RulesArgs {
+    /// Print the built-in hostile values of `gen --mode rare` instead.
+    #[arg(long)]
+    hostile: bool,
 }
 
 #[derive(Debug, clap::Args)]
@@ -68,12 +82,18 @@ pub fn run() -> i32 {
         Command::Learn(a) => learn::run(a),
         Command::Show(a) => show::run(a),
         Command::Gen(a) => gen_cmd::run(a),
+        Command::Mutate(a) => mutate::run(a),
         Command::Score(a) => score::run(a),
         Command::Hunt(a) => hunt::run(a),
         Command::Replay(a) => replay::replay(a),
         Command::Shrink(a) => replay::shrink(a),
+        Command::Seed(a) => seed::run(a),
         Command::Merge(a) => merge(a),
-        Command::Rules => {
+        Command::Rules(a) if a.hostile => {
+            print!("{}", tracewalk::generate::hostile::BUILTIN_HOSTILE_YAML);
+            Ok(0)
+        }
+        Command::Rules(_) => {
             print!("{}", tracewalk::token::rules::BUILTIN_RULES_YAML);
             Ok(0)
         }

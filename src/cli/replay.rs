@@ -87,7 +87,8 @@ pub fn shrink(a: ShrinkArgs) -> anyhow::Result<i32> {
     let (mut trace, format) = load_input(&a.trace, model.as_ref(), a.format.as_deref())?;
     let spec = a.target.spec(format)?;
     let mut target = spec.build(0)?;
-    let options = ShrinkOptions { max_calls: a.shrink_runs, stop: Some(tracewalk::harness::interrupt_flag()) };
+    let options =
+        ShrinkOptions { max_calls: a.shrink_runs, stop: Some(tracewalk::harness::interrupt_flag()) };
     let messages = messages_of(&trace);
     let Some((report, shrunk)) = shrink_failure(target.as_mut(), &messages, model.as_ref(), &options)? else {
         eprintln!("{}: does not fail ({} messages); nothing to shrink", a.trace.display(), messages.len());

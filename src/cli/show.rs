@@ -91,11 +91,12 @@ fn print_summary(s: &Summary) {
         s.sessions, s.messages, s.tokens, s.replies
     );
     println!(
-        "vocabulary: {} tokens ({} literals; slots: {}); {} templates",
+        "vocabulary: {} tokens ({} literals; slots: {}); {} templates ({} frequent enough for the session chain)",
         s.vocabulary,
         s.literals,
         if s.slot_classes.is_empty() { "none".to_string() } else { s.slot_classes.join(", ") },
-        s.templates
+        s.templates,
+        s.frequent_templates
     );
     println!();
     print_chain("session chain", "message", &s.session_chain);

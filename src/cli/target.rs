@@ -5,7 +5,8 @@ use std::time::Duration;
 
 use anyhow::Context;
 use tracewalk::harness::{
-    CommandLine, ExitCodes, Limits, Oracles, ReplyFraming, StatusClass, TargetKind, TargetSpec, Timing, resolve_tcp,
+    CommandLine, ExitCodes, Limits, Oracles, ReplyFraming, StatusClass, TargetKind, TargetSpec, Timing,
+    resolve_tcp,
 };
 use tracewalk::model::Compiled;
 use tracewalk::read::{self, Format};
@@ -41,8 +42,9 @@ pub struct TargetArgs {
     /// Longest run of one trace; the target's whole process group is then killed (a hang).
     #[arg(long, default_value = "5s", value_name = "DURATION", value_parser = parse_duration_ms)]
     timeout: u64,
-    /// Longest wait for a reply to one message.
-    #[arg(long, default_value = "1s", value_name = "DURATION", value_parser = parse_duration_ms)]
+    /// Longest wait for a reply to one message (a silent peer is then told the input ended,
+    /// and gets as long again before it counts as hanging).
+    #[arg(long, default_value = "250ms", value_name = "DURATION", value_parser = parse_duration_ms)]
     reply_timeout: u64,
     /// Line replies end after this long without output (unless --reply-end matched).
     #[arg(long, default_value = "20ms", value_name = "DURATION", value_parser = parse_duration_ms)]
@@ -90,7 +92,8 @@ pub fn parse_size(text: &str) -> anyhow::Result<u64> {
 }
 
 fn regex(option: &str, pattern: &str) -> anyhow::Result<regex::bytes::Regex> {
-    regex::bytes::Regex::new(pattern).map_err(|e| anyhow::anyhow!("{option}: bad regex `{pattern}`: {}", first_line(&e.to_string())))
+    regex::bytes::Regex::new(pattern)
+        .map_err(|e| anyhow::anyhow!("{option}: bad regex `{pattern}`: {}", first_line(&e.to_string())))
 }
 
 fn first_line(text: &str) -> String {
@@ -105,7 +108,9 @@ impl TargetArgs {
     /// Builds the target spec; `format` decides the reply framing unless --framing says.
     pub fn spec(&self, format: Format) -> anyhow::Result<TargetSpec> {
         let kind = match (&self.exec, &self.tcp) {
-            (Some(text), _) => TargetKind::Exec { command: command("--exec", text)?, per_message: self.per_message },
+            (Some(text), _) => {
+                TargetKind::Exec { command: command("--exec", text)?, per_message: self.per_message }
+            }
             (None, Some(addr)) => TargetKind::Tcp {
                 addr: resolve_tcp(addr, self.allow_remote).map_err(|e| anyhow::anyhow!("--tcp {e}"))?,
                 spawn: self.spawn.as_deref().map(|t| command("--spawn", t)).transpose()?,
@@ -120,7 +125,8 @@ impl TargetArgs {
             Some(other) => anyhow::bail!("--framing: `{other}` is not http or lines"),
         };
         let reply_end = self.reply_end.as_deref().map(|p| regex("--reply-end", p)).transpose()?;
-        let memory_bytes = self.memory_limit.as_deref().map(parse_size).transpose().context("--memory-limit")?;
+        let memory_bytes =
+            self.memory_limit.as_deref().map(parse_size).transpose().context("--memory-limit")?;
         let oracles = Oracles {
             ok_exit: self.ok_exit.parse::<ExitCodes>().map_err(|e| anyhow::anyhow!("--ok-exit: {e}"))?,
             stderr_pattern: self.fail_stderr.as_deref().map(|p| regex("--fail-stderr", p)).transpose()?,
@@ -171,7 +177,10 @@ impl TargetArgs {
         if self.allow_remote {
             push("--allow-remote", None);
         }
-        let framing = self.framing.clone().unwrap_or_else(|| if format == Format::Http { "http" } else { "lines" }.into());
+        let framing = self
+            .framing
+            .clone()
+            .unwrap_or_else(|| if format == Format::Http { "http" } else { "lines" }.into());
         push("--framing", Some(framing));
         let ms = |v: u64| format!("{v}ms");
         push("--timeout", Some(ms(self.timeout)));
@@ -204,16 +213,27 @@ impl TargetArgs {
 /// A trace file, or raw traffic (one session) read as the model reads (or as `format` says,
 /// else sniffed). Returns the trace (raw traffic gets a header naming its source) and the
 /// format its messages are in.
-pub fn load_input(path: &Path, model: Option<&Compiled>, format: Option<&str>) -> anyhow::Result<(Trace, Format)> {
+pub fn load_input(
+    path: &Path,
+    model: Option<&Compiled>,
+    format: Option<&str>,
+) -> anyhow::Result<(Trace, Format)> {
     let bytes = std::fs::read(path).with_context(|| format!("{}: cannot read", path.display()))?;
     if bytes.starts_with(b"%tracewalk-trace") {
-        let text = String::from_utf8(bytes).map_err(|_| anyhow::anyhow!("{}: trace is not UTF-8", path.display()))?;
+        let text = String::from_utf8(bytes)
+            .map_err(|_| anyhow::anyhow!("{}: trace is not UTF-8", path.display()))?;
         let trace = Trace::parse(&text).map_err(|e| anyhow::anyhow!("{}: {e}", path.display()))?;
         let format = match (format, model) {
             (Some(f), _) => f.parse::<Format>().map_err(anyhow::Error::msg)?,
             (None, Some(m)) => m.tokenizer.format(),
             (None, None) => match trace.messages.first() {
-                Some(m) if read::http::looks_like_start_line(m.bytes.split(|&b| b == b'\n').next().unwrap_or(b"")) => Format::Http,
+                Some(m)
+                    if read::http::looks_like_start_line(
+                        m.bytes.split(|&b| b == b'\n').next().unwrap_or(b""),
+                    ) =>
+                {
+                    Format::Http
+                }
                 _ => Format::Lines,
             },
         };

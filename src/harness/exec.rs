@@ -126,7 +126,8 @@ impl Target for SessionTarget {
         let mut replies_in = super::process::stream(proc.child().stdout.take().expect("piped"));
         let stderr = Collector::start(proc.child().stderr.take().expect("piped"), spec.capture_limit);
         let mut stdin = proc.child().stdin.take().expect("piped");
-        let (to_writer, writer_in) = mpsc::channel::<Vec<u8>>();
+        let (sender, writer_in) = mpsc::channel::<Vec<u8>>();
+        let mut to_writer = Some(sender);
         std::thread::spawn(move || {
             for message in writer_in {
                 if stdin.write_all(&message).and_then(|_| stdin.flush()).is_err() {
@@ -137,19 +138,41 @@ impl Target for SessionTarget {
         let mut o = Observation::new(ProcessEnd::Running);
         o.replies_required = spec.framing.required();
         let mut timed_out = false;
+        let mut sent: Vec<u8> = Vec::new();
+        let mut answered = 0;
         for message in messages {
             if Instant::now() >= deadline {
                 timed_out = true;
                 break;
             }
-            if to_writer.send(message.clone()).is_err() {
+            if to_writer.as_ref().is_none_or(|w| w.send(message.clone()).is_err()) {
                 break;
             }
-            let reply =
-                read_reply(&mut replies_in, &spec.framing, &spec.timing, deadline, spec.capture_limit);
-            let closed = reply.end == ReplyEnd::Closed;
+            sent.extend_from_slice(message);
+            let due = spec.framing.replies_due(&sent);
+            if due <= answered {
+                o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::NotDue });
+                continue;
+            }
+            let owed = due - answered;
+            answered = due;
+            let mut reply =
+                read_reply(&mut replies_in, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
+            let mut stop = matches!(reply.end, ReplyEnd::Closed | ReplyEnd::Cut);
+            if reply.end == ReplyEnd::Silent && spec.framing.required() {
+                // As for TCP: end the input; a program that then answers or exits was waiting.
+                to_writer = None;
+                let after =
+                    read_reply(&mut replies_in, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
+                reply = match after.end {
+                    ReplyEnd::Closed if after.bytes.is_empty() => super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue },
+                    ReplyEnd::Closed | ReplyEnd::Complete => super::Reply { bytes: after.bytes, end: ReplyEnd::Complete },
+                    _ => after,
+                };
+                stop = true;
+            }
             o.replies.push(reply);
-            if closed {
+            if stop {
                 break;
             }
         }

@@ -137,7 +137,7 @@ impl Default for Timing {
     fn default() -> Self {
         Timing {
             run_timeout: Duration::from_secs(5),
-            reply_timeout: Duration::from_secs(1),
+            reply_timeout: Duration::from_millis(250),
             reply_settle: Duration::from_millis(20),
         }
     }

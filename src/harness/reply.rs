@@ -32,10 +32,43 @@ impl ReplyFraming {
         matches!(self, ReplyFraming::Http)
     }
 
-    fn complete(&self, buf: &[u8]) -> bool {
+    /// How many replies the peer owes once it has received `sent` (everything written on the
+    /// stream so far). HTTP: one per complete request, and one per unparseable head that is
+    /// complete (a server answers 400); a request whose body is not all there yet (a
+    /// Content-Length larger than the body, say), or trailing bytes without an empty line, are
+    /// owed nothing: the peer rightly waits for the rest. Lines: one per complete line (a line
+    /// reply may still be empty).
+    pub fn replies_due(&self, sent: &[u8]) -> usize {
         match self {
             ReplyFraming::Http => {
-                frame_http(buf, &mut Skips::default()).iter().any(|f| f.role == Role::Reply)
+                let mut skips = Skips::default();
+                let frames = frame_http(sent, &mut skips);
+                let requests = frames.iter().filter(|f| f.role == Role::Request).count();
+                let unparseable = skips.by_reason.get("unparseable HTTP messages").copied().unwrap_or(0) as usize;
+                let tail = &sent[frames.last().map_or(0, |f| f.range.end)..];
+                let has_empty_line = |b: &[u8]| b.windows(4).any(|w| w == b"\r\n\r\n") || b.windows(2).any(|w| w == b"\n\n");
+                let open_tail = !tail.iter().all(u8::is_ascii_whitespace) && !has_empty_line(tail);
+                requests + unparseable - usize::from(open_tail && unparseable > 0)
+            }
+            ReplyFraming::Lines { .. } => memchr::memchr_iter(b'\n', sent).count(),
+        }
+    }
+
+    /// True when `buf` holds only whole replies (nothing half-read).
+    fn whole(&self, buf: &[u8]) -> bool {
+        match self {
+            ReplyFraming::Http => {
+                let frames = frame_http(buf, &mut Skips::default());
+                frames.last().is_some_and(|f| f.range.end == buf.len()) || buf.iter().all(u8::is_ascii_whitespace)
+            }
+            ReplyFraming::Lines { .. } => true,
+        }
+    }
+
+    fn complete(&self, buf: &[u8], count: usize) -> bool {
+        match self {
+            ReplyFraming::Http => {
+                frame_http(buf, &mut Skips::default()).iter().filter(|f| f.role == Role::Reply).count() >= count
             }
             ReplyFraming::Lines { end: Some(re) } => {
                 let Some(body) = buf.strip_suffix(b"\n") else { return false };
@@ -95,14 +128,16 @@ impl ChunkSource for std::net::TcpStream {
     }
 }
 
-/// Reads one reply from `source`, keeping at most `limit` bytes (the rest is drained and
-/// dropped), never waiting past `deadline`.
+/// Reads the reply to one message (`count` HTTP responses, or line output) from `source`,
+/// keeping at most `limit` bytes (the rest is drained and dropped), never waiting past
+/// `deadline`.
 pub(crate) fn read_reply(
     source: &mut impl ChunkSource,
     framing: &ReplyFraming,
     timing: &Timing,
     deadline: Instant,
     limit: usize,
+    count: usize,
 ) -> Reply {
     let mut bytes = Vec::new();
     let mut seen = 0usize;
@@ -121,7 +156,7 @@ pub(crate) fn read_reply(
                 let room = limit.saturating_sub(bytes.len());
                 bytes.extend_from_slice(&d[..room.min(d.len())]);
                 last_data = Instant::now();
-                if framing.complete(&bytes) {
+                if framing.complete(&bytes, count) {
                     return Reply { bytes, end: ReplyEnd::Complete };
                 }
             }
@@ -136,7 +171,10 @@ pub(crate) fn read_reply(
                 };
                 return Reply { bytes, end };
             }
-            Chunk::Closed => return Reply { bytes, end: ReplyEnd::Closed },
+            Chunk::Closed => {
+                let end = if seen > bytes.len() || !framing.whole(&bytes) { ReplyEnd::Cut } else { ReplyEnd::Closed };
+                return Reply { bytes, end };
+            }
         }
     }
 }
@@ -168,7 +206,7 @@ mod tests {
             Chunk::Data(b"extra".to_vec()),
         ]);
         let far = Instant::now() + Duration::from_secs(5);
-        let r = read_reply(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16);
+        let r = read_reply(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16, 1);
         assert_eq!(r.end, ReplyEnd::Complete);
         assert_eq!(r.bytes, b"HTTP/1.1 200 OK\r\nContent-Length: 4\r\n\r\nabcd");
     }
@@ -178,10 +216,29 @@ mod tests {
         let framing = ReplyFraming::Lines { end: Some(Regex::new("^OK").unwrap()) };
         let far = Instant::now() + Duration::from_secs(5);
         let mut s = Script(vec![Chunk::Data(b"VAL 1\n".to_vec()), Chunk::Data(b"OK done\n".to_vec())]);
-        assert_eq!(read_reply(&mut s, &framing, &timing(), far, 1 << 16).end, ReplyEnd::Complete);
+        assert_eq!(read_reply(&mut s, &framing, &timing(), far, 1 << 16, 1).end, ReplyEnd::Complete);
         let mut s = Script(vec![Chunk::Data(b"VAL 1\n".to_vec())]);
-        let r = read_reply(&mut s, &framing, &timing(), far, 3);
-        assert_eq!((r.end, r.bytes.as_slice()), (ReplyEnd::Closed, &b"VAL"[..]));
+        let r = read_reply(&mut s, &framing, &timing(), far, 3, 1);
+        assert_eq!((r.end, r.bytes.as_slice()), (ReplyEnd::Cut, &b"VAL"[..]), "bytes beyond the limit were dropped");
+        let mut s = Script(vec![Chunk::Data(b"HTTP/1.1 400 Bad\r\nContent-Length: 0\r\n\r\n".to_vec())]);
+        let r = read_reply(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16, 2);
+        assert_eq!(r.end, ReplyEnd::Closed, "answered, then closed: nothing was cut");
+        let mut s = Script(vec![Chunk::Data(b"HTTP/1.1 200 OK\r\nContent-Length: 9\r\n\r\nab".to_vec())]);
+        assert_eq!(read_reply(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16, 1).end, ReplyEnd::Cut);
+    }
+
+    #[test]
+    fn replies_are_due_only_for_complete_requests() {
+        let h = ReplyFraming::Http;
+        let get = b"GET /a HTTP/1.1\r\nHost: x\r\n\r\n".to_vec();
+        assert_eq!(h.replies_due(&get), 1);
+        let short_body = b"POST /b HTTP/1.1\r\nContent-Length: 9\r\n\r\nabc".to_vec();
+        assert_eq!(h.replies_due(&[get.clone(), short_body.clone()].concat()), 1);
+        assert_eq!(h.replies_due(&[get.clone(), short_body, b"defghi".to_vec()].concat()), 2);
+        assert_eq!(h.replies_due(b"BROKEN\r\n\r\n"), 1);
+        assert_eq!(h.replies_due(&[get.clone(), b"}".to_vec()].concat()), 1, "an open tail is still arriving");
+        let lines = ReplyFraming::Lines { end: None };
+        assert_eq!(lines.replies_due(b"PING\nSET a"), 1);
     }
 
     #[test]
@@ -193,7 +250,7 @@ mod tests {
         };
         let far = Instant::now() + Duration::from_secs(5);
         let start = Instant::now();
-        let r = read_reply(&mut rx_only, &ReplyFraming::Http, &timing(), far, 16);
+        let r = read_reply(&mut rx_only, &ReplyFraming::Http, &timing(), far, 16, 1);
         assert_eq!(r.end, ReplyEnd::Silent);
         assert!(start.elapsed() >= Duration::from_millis(30));
     }

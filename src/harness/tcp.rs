@@ -17,6 +17,9 @@ use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
 
 /// How long a crashing server may take to be seen as exited after the connection dropped.
 const EXIT_GRACE: Duration = Duration::from_millis(500);
+/// How long a server that closed the connection without a word may take to be seen as exited
+/// (a panicking Rust server drops its connections while unwinding, just before it exits).
+const CLOSE_GRACE: Duration = Duration::from_millis(100);
 
 #[derive(Debug)]
 struct Server {
@@ -101,10 +104,9 @@ impl TcpTarget {
     }
 }
 
-/// True when an HTTP reply announces that the server closes the connection.
+/// True when a response in `reply` announces that the server closes the connection.
 fn closes_connection(reply: &[u8]) -> bool {
-    let head_end = reply.windows(4).position(|w| w == b"\r\n\r\n").unwrap_or(reply.len());
-    reply[..head_end].split(|&b| b == b'\n').any(|line| {
+    reply.split(|&b| b == b'\n').any(|line| {
         let line = String::from_utf8_lossy(line).to_ascii_lowercase();
         line.starts_with("connection:") && line.contains("close")
     })
@@ -126,6 +128,8 @@ impl Target for TcpTarget {
         match TcpStream::connect_timeout(&self.addr, connect_wait) {
             Ok(mut stream) => {
                 let _ = stream.set_nodelay(true);
+                let mut sent: Vec<u8> = Vec::new();
+                let mut answered = 0;
                 for message in messages {
                     let left = deadline.saturating_duration_since(Instant::now());
                     if left.is_zero() {
@@ -137,9 +141,30 @@ impl Target for TcpTarget {
                         o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::Closed });
                         break;
                     }
-                    let reply =
-                        read_reply(&mut stream, &spec.framing, &spec.timing, deadline, spec.capture_limit);
-                    let stop = reply.end == ReplyEnd::Closed || closes_connection(&reply.bytes);
+                    sent.extend_from_slice(message);
+                    let due = spec.framing.replies_due(&sent);
+                    if due <= answered {
+                        o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::NotDue });
+                        continue;
+                    }
+                    let owed = due - answered;
+                    answered = due;
+                    let mut reply =
+                        read_reply(&mut stream, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
+                    let mut stop = matches!(reply.end, ReplyEnd::Closed | ReplyEnd::Cut) || closes_connection(&reply.bytes);
+                    if reply.end == ReplyEnd::Silent {
+                        // Silence may mean the server waits for input we will never send (it
+                        // parsed the stream differently): tell it the input ended. A server that
+                        // then answers or closes was waiting; one that stays silent hangs.
+                        let _ = stream.shutdown(std::net::Shutdown::Write);
+                        let after = read_reply(&mut stream, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
+                        reply = match after.end {
+                            ReplyEnd::Closed if after.bytes.is_empty() => super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue },
+                            ReplyEnd::Closed | ReplyEnd::Complete => super::Reply { bytes: after.bytes, end: ReplyEnd::Complete },
+                            _ => after,
+                        };
+                        stop = true;
+                    }
                     o.replies.push(reply);
                     if Instant::now() >= deadline {
                         timed_out = true;
@@ -161,11 +186,22 @@ impl Target for TcpTarget {
                 }
             }
         }
-        let troubled =
-            timed_out || o.replies.iter().any(|r| !matches!(r.end, ReplyEnd::Complete | ReplyEnd::Quiet));
+        // How long to watch a spawned server for a crash: a peer that went silent or cut a
+        // reply may be dying; one that closed without a word may be unwinding from a panic;
+        // one that answered everything, or announced the close, is fine.
+        let hung = timed_out
+            || o.replies.iter().any(|r| matches!(r.end, ReplyEnd::Silent | ReplyEnd::Stalled | ReplyEnd::Cut));
+        let quiet_close =
+            o.replies.last().is_some_and(|r| r.end == ReplyEnd::Closed && !closes_connection(&r.bytes));
         if let Some(server) = &mut self.server {
-            let wait_until = if troubled { Instant::now() + EXIT_GRACE } else { Instant::now() };
-            match server.proc.wait_until(wait_until.min(deadline.max(Instant::now()))) {
+            let grace = if hung {
+                EXIT_GRACE
+            } else if quiet_close {
+                CLOSE_GRACE
+            } else {
+                Duration::ZERO
+            };
+            match server.proc.wait_until((Instant::now() + grace).min(deadline.max(Instant::now()))) {
                 Some(status) => {
                     o.end = ProcessEnd::from_status(status);
                     o.stderr = server.stderr.finish(Instant::now() + Duration::from_millis(200));
@@ -173,7 +209,7 @@ impl Target for TcpTarget {
                 }
                 None => {
                     o.stderr = server.stderr.snapshot();
-                    if troubled {
+                    if hung {
                         // A server that stopped answering would spoil the next runs: restart it.
                         server.proc.kill();
                         self.server = None;

@@ -30,7 +30,7 @@ use crate::shrink::{ShrinkOptions, Shrunk, shrink};
 use crate::trace::Trace;
 
 pub use campaign::hunt;
-pub use source::{ModelSource, TraceSource, learned_transitions};
+pub use source::{ModelSource, TraceSource};
 pub use store::{Resume, Store};
 
 /// Errors of a campaign.

@@ -3,8 +3,8 @@
 use rustc_hash::FxHashSet;
 
 use crate::generate::Generator;
-use crate::model::{Compiled, Model};
-use crate::symbol::{BEGIN, END};
+use crate::generate::transitions::Transitions;
+use crate::model::Compiled;
 use crate::trace::Trace;
 
 /// A deterministic stream of traces for a campaign.
@@ -36,43 +36,25 @@ pub trait TraceSource {
     }
 }
 
-/// The first-order session transitions (previous template → template, with begin and end) seen
-/// in training.
-pub fn learned_transitions(model: &Model) -> FxHashSet<(u32, u32)> {
-    let grams = &model.session_chain;
-    if grams.order == 0 {
-        return FxHashSet::default();
-    }
-    grams.marginal(1).rows().filter(|(_, c)| c[0] + c[1] > 0).map(|(g, _)| (g[0], g[1])).collect()
-}
-
 /// Traces generated from a model.
 #[derive(Debug)]
 pub struct ModelSource<'m> {
     generator: Generator<'m>,
     seed: u64,
-    learned: FxHashSet<(u32, u32)>,
-    covered: FxHashSet<(u32, u32)>,
+    /// The learned session transitions (see [`Transitions`]); coverage counts edges taken.
+    transitions: Transitions,
+    covered: FxHashSet<usize>,
 }
 
 impl<'m> ModelSource<'m> {
-    /// `learned` comes from [`learned_transitions`] of the model before it was compiled.
-    pub fn new(generator: Generator<'m>, seed: u64, learned: FxHashSet<(u32, u32)>) -> ModelSource<'m> {
-        ModelSource { generator, seed, learned, covered: FxHashSet::default() }
+    pub fn new(generator: Generator<'m>, seed: u64) -> ModelSource<'m> {
+        let transitions = Transitions::of(&generator.model().session);
+        ModelSource { generator, seed, transitions, covered: FxHashSet::default() }
     }
 
     fn walk(&mut self, index: u64) -> crate::generate::Walk {
         let walk = self.generator.walk(self.seed, index);
-        let mut previous = BEGIN;
-        for t in walk.templates() {
-            if self.learned.contains(&(previous, t)) {
-                self.covered.insert((previous, t));
-            }
-            previous = t;
-        }
-        if walk.ended && self.learned.contains(&(previous, END)) {
-            self.covered.insert((previous, END));
-        }
+        self.covered.extend(self.transitions.taken(&walk.templates(), walk.ended));
         walk
     }
 }
@@ -103,12 +85,22 @@ impl TraceSource for ModelSource<'_> {
         if options.temperature != 1.0 {
             id.push(("temperature".into(), options.temperature.to_string()));
         }
+        if options.mode == crate::generate::Mode::Rare {
+            id.push(("rare-rate".into(), options.rare_rate.to_string()));
+            id.push(("rare-min".into(), options.rare_min.to_string()));
+            let hostile = match (&options.hostile, options.hostile_rate) {
+                (None, _) => "none".to_string(),
+                (Some(_), Some(rate)) => format!("rate {rate}"),
+                (Some(_), None) => "at the rare rate".to_string(),
+            };
+            id.push(("hostile".into(), hostile));
+        }
         id.push(("max-messages".into(), options.max_messages.to_string()));
         id
     }
 
     fn coverage(&self) -> Option<(usize, usize)> {
-        Some((self.covered.len(), self.learned.len()))
+        Some((self.covered.len(), self.transitions.len()))
     }
 
     fn model(&self) -> Option<&Compiled> {

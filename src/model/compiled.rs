@@ -35,6 +35,7 @@ pub struct Compiled {
     /// Token symbols of each template (session symbol `FIRST_TEMPLATE + i`).
     pub templates: Vec<Box<[u32]>>,
     template_index: FxHashMap<Box<[u32]>, u32>,
+    frequent: Vec<bool>,
     /// Chain over templates within a session.
     pub session: Chain,
     /// Chain over tokens within a message.
@@ -44,6 +45,34 @@ pub struct Compiled {
     pool_index: FxHashMap<(u32, u32), u32>,
     class_pool: FxHashMap<u32, u32>,
     template_slots: Vec<Vec<SlotRef>>,
+    /// Rare templates (those folded into the novel-message symbol) by the session symbol before
+    /// them, with counts; key `u32::MAX` holds all of them.
+    rare_after: FxHashMap<u32, (Vec<u32>, AliasTable)>,
+}
+
+/// Counts of each rare template after each (folded) predecessor, from the first-order marginal
+/// of the unfolded session table.
+fn rare_templates_by_predecessor(model: &Model, frequent: &[bool]) -> FxHashMap<u32, (Vec<u32>, AliasTable)> {
+    let is_rare = |s: u32| s.checked_sub(FIRST_TEMPLATE).is_some_and(|i| !frequent[i as usize]);
+    let mut counts: FxHashMap<u32, std::collections::BTreeMap<u32, u64>> = FxHashMap::default();
+    if model.session_chain.order >= 1 {
+        for (g, c) in model.session_chain.marginal(1).rows() {
+            if !is_rare(g[1]) {
+                continue;
+            }
+            let prev = if is_rare(g[0]) { crate::symbol::NOVEL } else { g[0] };
+            for key in [prev, u32::MAX] {
+                *counts.entry(key).or_default().entry(g[1]).or_default() += c[0] + c[1];
+            }
+        }
+    }
+    counts
+        .into_iter()
+        .map(|(k, m)| {
+            let weights: Vec<f64> = m.values().map(|&c| c as f64).collect();
+            (k, (m.into_keys().collect(), AliasTable::new(&weights)))
+        })
+        .collect()
 }
 
 impl Compiled {
@@ -56,11 +85,15 @@ impl Compiled {
             discount: model.settings.discount,
             parts: Parts::All,
         };
-        let session = Chain::build(&model.session_chain, model.session_symbols(), &config);
+        let session = Chain::build(&model.session_chain_grams(), model.session_symbols(), &config);
+        let frequent = model.frequent_templates();
+        let rare_after = rare_templates_by_predecessor(&model, &frequent);
         let message = Chain::build(&model.message_chain, model.token_symbols(), &config);
         let Model { settings, totals, tokens, templates, pools, .. } = model;
         let vocab = Vocab::new(tokens, tokenizer.classes());
         let templates: Vec<Box<[u32]>> = templates.into_iter().map(|t| t.0.into_boxed_slice()).collect();
+        // Rare templates stay listed (symbols are stable) but are not looked up: the session
+        // chain knows them only as novel messages.
         let template_index =
             templates.iter().enumerate().map(|(i, t)| (t.clone(), FIRST_TEMPLATE + i as u32)).collect();
         let mut pool_index = FxHashMap::default();
@@ -92,6 +125,7 @@ impl Compiled {
             vocab,
             templates,
             template_index,
+            frequent,
             session,
             message,
             pools,
@@ -99,19 +133,35 @@ impl Compiled {
             pool_index,
             class_pool,
             template_slots: Vec::new(),
+            rare_after,
         };
         compiled.template_slots = compiled.templates.iter().map(|t| compiled.slots_of(t)).collect();
         Ok(compiled)
     }
 
-    /// Session symbol of a template given as token symbols.
+    /// Session-chain symbol of a template given as token symbols: `None` for a template never
+    /// learned or too rare to be its own symbol (the chain knows those as novel messages).
     pub fn template_symbol(&self, tokens: &[u32]) -> Option<u32> {
+        self.learned_template(tokens).filter(|&s| self.frequent[(s - FIRST_TEMPLATE) as usize])
+    }
+
+    /// Symbol of a template seen in training, however rarely.
+    pub fn learned_template(&self, tokens: &[u32]) -> Option<u32> {
         self.template_index.get(tokens).copied()
     }
 
     /// Token symbols of the template with this session symbol.
     pub fn template(&self, symbol: u32) -> Option<&[u32]> {
         symbol.checked_sub(FIRST_TEMPLATE).and_then(|i| self.templates.get(i as usize)).map(|t| &**t)
+    }
+
+    /// Draws one of the rare templates seen in training after a step with session symbol `prev`
+    /// (rare templates are what the session chain's novel-message symbol stood for), weighted by
+    /// count; falls back to all rare templates when none followed `prev`. `None` when the model
+    /// has no rare templates.
+    pub fn sample_rare_template<R: Rng + ?Sized>(&self, prev: u32, rng: &mut R) -> Option<u32> {
+        let (symbols, table) = self.rare_after.get(&prev).or_else(|| self.rare_after.get(&u32::MAX))?;
+        Some(symbols[table.draw(rng.next_u64())])
     }
 
     /// Slots of a known template.

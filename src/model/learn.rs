@@ -39,6 +39,8 @@ pub struct LearnOptions {
     pub smoothing: Smoothing,
     pub discount: Option<f64>,
     pub pool_cap: usize,
+    /// See [`Settings::min_template_count`].
+    pub min_template_count: u64,
     pub rules: RuleSet,
 }
 
@@ -50,6 +52,7 @@ impl Default for LearnOptions {
             smoothing: Smoothing::KneserNey,
             discount: None,
             pool_cap: 256,
+            min_template_count: 2,
             rules: RuleSet::builtin(),
         }
     }
@@ -185,6 +188,7 @@ pub fn learn(
         smoothing: options.smoothing,
         discount: options.discount,
         pool_cap: options.pool_cap as u32,
+        min_template_count: options.min_template_count,
         rules: options.rules.clone(),
     };
     let units = plan_units(corpus);
@@ -229,7 +233,7 @@ pub fn learn(
     let config =
         ChainConfig { smoothing: options.smoothing, discount: options.discount, ..Default::default() };
     if let OrderChoice::Auto { .. } = options.session_order {
-        let (scores, best) = pick_order(&model.session_chain, model.session_symbols(), &config, 2);
+        let (scores, best) = pick_order(&model.session_chain_grams(), model.session_symbols(), &config, 2);
         model.session_chain = model.session_chain.marginal(best);
         report.session_scores = scores;
     }

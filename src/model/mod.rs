@@ -51,11 +51,20 @@ pub struct Settings {
     pub read: ReadOptions,
     pub smoothing: Smoothing,
     /// Fixed Kneser–Ney discount; estimated per level when absent.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub discount: Option<f64>,
     /// Most distinct values kept per slot pool.
     pub pool_cap: u32,
+    /// Templates seen fewer times than this are one symbol, "novel message", in the session
+    /// chain (the usual unknown-word treatment of language models, applied to templates).
+    /// Applied when chains are built, so counts stay exactly mergeable.
+    #[serde(default = "default_min_template_count")]
+    pub min_template_count: u64,
     pub rules: RuleSet,
+}
+
+fn default_min_template_count() -> u64 {
+    2
 }
 
 /// Sizes of what was learned (additive under merge).
@@ -164,6 +173,36 @@ impl Model {
         }
     }
 
+    /// How often each template occurs (index `i` is template `FIRST_TEMPLATE + i`).
+    pub fn template_counts(&self) -> Vec<u64> {
+        let mut counts = vec![0u64; self.templates.len()];
+        let order = self.session_chain.order;
+        for (g, c) in self.session_chain.rows() {
+            if let Some(i) = g[order].checked_sub(FIRST_TEMPLATE) {
+                counts[i as usize] += c[0] + c[1];
+            }
+        }
+        counts
+    }
+
+    /// Whether each template is frequent enough to be its own symbol in the session chain.
+    pub fn frequent_templates(&self) -> Vec<bool> {
+        self.template_counts().into_iter().map(|c| c >= self.settings.min_template_count).collect()
+    }
+
+    /// The session table chains are built from: rare templates folded into
+    /// [`crate::symbol::NOVEL`].
+    pub fn session_chain_grams(&self) -> Grams {
+        let frequent = self.frequent_templates();
+        if frequent.iter().all(|&f| f) {
+            return self.session_chain.clone();
+        }
+        self.session_chain.remap(|s| match s.checked_sub(FIRST_TEMPLATE) {
+            Some(i) if !frequent[i as usize] => crate::symbol::NOVEL,
+            _ => s,
+        })
+    }
+
     /// The sum of two models learned with equal settings and orders. Equal to learning on both
     /// inputs at once.
     pub fn merge(&self, other: &Model) -> Result<Model, ModelError> {
@@ -198,6 +237,9 @@ impl Model {
             && !(d > 0.0 && d <= 1.0)
         {
             return Err(format!("discount {d} is outside (0, 1]"));
+        }
+        if self.settings.min_template_count == 0 {
+            return Err("min template count must be at least 1".into());
         }
         if self.settings.pool_cap == 0 || self.settings.pool_cap > 1 << 20 {
             return Err(format!("pool cap {} is outside 1..=1048576", self.settings.pool_cap));
@@ -252,6 +294,8 @@ fn describe_settings_difference(a: &Settings, b: &Settings) -> String {
         "slot rules"
     } else if a.smoothing != b.smoothing || a.discount != b.discount {
         "smoothing"
+    } else if a.min_template_count != b.min_template_count {
+        "minimum template count"
     } else {
         "pool cap"
     };

@@ -31,7 +31,7 @@ pub struct PoolValue {
 pub struct Pool {
     pub class: String,
     /// Token symbol of the anchor literal; `None` when no literal precedes the slot.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub anchor: Option<u32>,
     /// Slot occurrences seen, kept or not.
     pub seen: u64,

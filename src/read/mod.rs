@@ -81,17 +81,17 @@ pub struct Frame {
 #[serde(deny_unknown_fields)]
 pub struct ReadOptions {
     /// `None` = sniff from the first source.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub format: Option<Format>,
     /// Regex whose first capture group names the session a line belongs to (lines, jsonl).
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub session_key: Option<String>,
     /// Start a new session when consecutive lines of a session are further apart than this
     /// (milliseconds); needs timestamps in the lines.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub idle_gap_ms: Option<u64>,
     /// Regex marking reply lines (lines, jsonl). HTTP replies are recognised by their status line.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub reply_pattern: Option<String>,
 }
 
@@ -242,144 +242,196 @@ pub fn sniff(sources: &[Source]) -> Format {
     Format::Lines
 }
 
-/// Compiled read options.
-struct Plan {
-    format: Format,
+/// Read options compiled once (regexes built), for reading many inputs the same way.
+#[derive(Debug, Clone)]
+pub struct Reader {
+    options: ReadOptions,
     session_key: Option<regex::bytes::Regex>,
     reply: Option<regex::bytes::Regex>,
-    idle_gap_ms: Option<u64>,
 }
 
 fn compile_regex(what: &str, pattern: &str) -> Result<regex::bytes::Regex, ReadError> {
-    regex::bytes::Regex::new(pattern).map_err(|e| bad(Path::new(what), format!("bad regex `{pattern}`: {e}")))
+    regex::bytes::Regex::new(pattern).map_err(|e| {
+        let text = e.to_string();
+        let reason = text.lines().rev().find_map(|l| l.trim().strip_prefix("error: ")).unwrap_or(&text);
+        bad(Path::new(what), format!("bad regex `{pattern}`: {reason}"))
+    })
 }
 
-/// Reads `sources` into a corpus. `what` names the input in errors (e.g. the paths given).
+impl Reader {
+    /// Compiles `options`; a bad regex is an error naming the option.
+    pub fn new(options: &ReadOptions) -> Result<Reader, ReadError> {
+        let session_key = match &options.session_key {
+            Some(p) => {
+                let re = compile_regex("--session-key", p)?;
+                if re.captures_len() < 2 {
+                    return Err(bad(
+                        Path::new("--session-key"),
+                        format!("`{p}` needs a capture group naming the session"),
+                    ));
+                }
+                Some(re)
+            }
+            None => None,
+        };
+        let reply =
+            options.reply_pattern.as_deref().map(|p| compile_regex("--reply-pattern", p)).transpose()?;
+        Ok(Reader { options: options.clone(), session_key, reply })
+    }
+
+    pub fn options(&self) -> &ReadOptions {
+        &self.options
+    }
+
+    /// Reads `sources` into a corpus. `what` names the input in errors (e.g. the paths given).
+    pub fn read(&self, sources: Vec<Source>, what: &str) -> Result<Corpus, ReadError> {
+        let format = self.options.format.unwrap_or_else(|| sniff(&sources));
+        let mut skips = Skips::default();
+        let mut sessions = Vec::new();
+        for (index, source) in sources.iter().enumerate() {
+            if source.bytes.is_empty() {
+                skips.add("empty files", 1);
+                continue;
+            }
+            if format != Format::Http && looks_binary(&source.bytes) {
+                // Common practice (as text tools do): a NUL byte near the start marks a binary file.
+                skips.add("binary files", 1);
+                continue;
+            }
+            self.frame_source(format, index, source, &mut sessions, &mut skips);
+        }
+        sessions.retain(|s: &Session| s.frames.iter().any(|f| f.role == Role::Request));
+        let corpus = Corpus {
+            format,
+            options: ReadOptions { format: Some(format), ..self.options.clone() },
+            sources,
+            sessions,
+            skips,
+        };
+        if corpus.sessions.is_empty() {
+            let detail = if corpus.skips.total() > 0 {
+                format!(" (skipped: {})", corpus.skips.summary())
+            } else {
+                String::new()
+            };
+            return Err(ReadError::NothingUsable { what: what.to_string(), detail });
+        }
+        Ok(corpus)
+    }
+
+    /// Frames one byte stream as a single session (no session key, no binary check): each
+    /// message with its role, in order, plus what was skipped. For inputs read back one at a time
+    /// (a trace file of raw traffic, a fuzzing engine's input).
+    pub fn messages(&self, bytes: &[u8]) -> (Vec<(Vec<u8>, Role)>, Skips) {
+        let mut skips = Skips::default();
+        let format = self.options.format.unwrap_or(Format::Lines);
+        let frames = self.frames(format, bytes, &mut skips);
+        (frames.into_iter().map(|f| (bytes[f.range].to_vec(), f.role)).collect(), skips)
+    }
+
+    fn frames(&self, format: Format, bytes: &[u8], skips: &mut Skips) -> Vec<Frame> {
+        match format {
+            Format::Http => frame_http(bytes, skips),
+            Format::Lines | Format::Jsonl => {
+                let mut frames = frame_lines(bytes, skips);
+                if format == Format::Jsonl {
+                    frames.retain(|f| {
+                        let line = trim_line_end(&bytes[f.range.clone()]);
+                        let ok =
+                            line.is_empty() || serde_json::from_slice::<serde::de::IgnoredAny>(line).is_ok();
+                        if !ok {
+                            skips.add("lines not JSON", 1);
+                        }
+                        ok && !line.is_empty()
+                    });
+                }
+                if let Some(reply) = &self.reply {
+                    for f in &mut frames {
+                        if reply.is_match(trim_line_end(&bytes[f.range.clone()])) {
+                            f.role = Role::Reply;
+                        }
+                    }
+                }
+                frames
+            }
+        }
+    }
+
+    fn frame_source(
+        &self,
+        format: Format,
+        index: usize,
+        source: &Source,
+        sessions: &mut Vec<Session>,
+        skips: &mut Skips,
+    ) {
+        let frames = self.frames(format, &source.bytes, skips);
+        if frames.is_empty() {
+            return;
+        }
+        if format == Format::Http || (self.session_key.is_none() && self.options.idle_gap_ms.is_none()) {
+            sessions.push(Session { source: index, frames });
+            return;
+        }
+        self.group_sessions(index, &source.bytes, frames, sessions, skips);
+    }
+
+    /// Splits one source's frames into sessions by key and idle gap, in order of first
+    /// appearance.
+    fn group_sessions(
+        &self,
+        index: usize,
+        bytes: &[u8],
+        frames: Vec<Frame>,
+        sessions: &mut Vec<Session>,
+        skips: &mut Skips,
+    ) {
+        // key → (position in `sessions`, time of the last line)
+        let mut open: BTreeMap<Vec<u8>, (usize, Option<i64>)> = BTreeMap::new();
+        for frame in frames {
+            let line = &bytes[frame.range.clone()];
+            let key: Vec<u8> = match &self.session_key {
+                Some(re) => match re.captures(line).and_then(|c| c.get(1)) {
+                    Some(m) => m.as_bytes().to_vec(),
+                    None => {
+                        skips.add("lines without a session key", 1);
+                        continue;
+                    }
+                },
+                None => Vec::new(),
+            };
+            let now = self.options.idle_gap_ms.and_then(|_| time::find_timestamp_ms(line));
+            let slot = open.get_mut(&key);
+            let continue_session = match (&slot, self.options.idle_gap_ms) {
+                (Some((_, last)), Some(gap)) => match (last, now) {
+                    (Some(last), Some(now)) => now.saturating_sub(*last) <= gap as i64,
+                    _ => true,
+                },
+                (Some(_), None) => true,
+                (None, _) => false,
+            };
+            if continue_session {
+                let (pos, last) = slot.expect("checked above");
+                sessions[*pos].frames.push(frame);
+                if now.is_some() {
+                    *last = now;
+                }
+            } else {
+                sessions.push(Session { source: index, frames: vec![frame] });
+                open.insert(key, (sessions.len() - 1, now));
+            }
+        }
+    }
+}
+
+/// Reads `sources` into a corpus (compiling `options` first; see [`Reader`]).
 pub fn read(sources: Vec<Source>, options: &ReadOptions, what: &str) -> Result<Corpus, ReadError> {
-    let format = options.format.unwrap_or_else(|| sniff(&sources));
-    let session_key = match &options.session_key {
-        Some(p) => {
-            let re = compile_regex("--session-key", p)?;
-            if re.captures_len() < 2 {
-                return Err(bad(
-                    Path::new("--session-key"),
-                    format!("`{p}` needs a capture group naming the session"),
-                ));
-            }
-            Some(re)
-        }
-        None => None,
-    };
-    let reply = options.reply_pattern.as_deref().map(|p| compile_regex("--reply-pattern", p)).transpose()?;
-    let plan = Plan { format, session_key, reply, idle_gap_ms: options.idle_gap_ms };
-    let mut skips = Skips::default();
-    let mut sessions = Vec::new();
-    for (index, source) in sources.iter().enumerate() {
-        if source.bytes.is_empty() {
-            skips.add("empty files", 1);
-            continue;
-        }
-        frame_source(&plan, index, source, &mut sessions, &mut skips);
-    }
-    sessions.retain(|s: &Session| s.frames.iter().any(|f| f.role == Role::Request));
-    let corpus = Corpus {
-        format,
-        options: ReadOptions { format: Some(format), ..options.clone() },
-        sources,
-        sessions,
-        skips,
-    };
-    if corpus.sessions.is_empty() {
-        let detail = if corpus.skips.total() > 0 {
-            format!(" (skipped: {})", corpus.skips.summary())
-        } else {
-            String::new()
-        };
-        return Err(ReadError::NothingUsable { what: what.to_string(), detail });
-    }
-    Ok(corpus)
+    Reader::new(options)?.read(sources, what)
 }
 
-fn frame_source(plan: &Plan, index: usize, source: &Source, sessions: &mut Vec<Session>, skips: &mut Skips) {
-    let bytes = &source.bytes;
-    let frames = match plan.format {
-        Format::Http => frame_http(bytes, skips),
-        Format::Lines | Format::Jsonl => {
-            let mut frames = frame_lines(bytes, skips);
-            if plan.format == Format::Jsonl {
-                frames.retain(|f| {
-                    let line = trim_line_end(&bytes[f.range.clone()]);
-                    let ok = line.is_empty() || serde_json::from_slice::<serde::de::IgnoredAny>(line).is_ok();
-                    if !ok {
-                        skips.add("lines not JSON", 1);
-                    }
-                    ok && !line.is_empty()
-                });
-            }
-            if let Some(reply) = &plan.reply {
-                for f in &mut frames {
-                    if reply.is_match(trim_line_end(&bytes[f.range.clone()])) {
-                        f.role = Role::Reply;
-                    }
-                }
-            }
-            frames
-        }
-    };
-    if frames.is_empty() {
-        return;
-    }
-    if plan.format == Format::Http || (plan.session_key.is_none() && plan.idle_gap_ms.is_none()) {
-        sessions.push(Session { source: index, frames });
-        return;
-    }
-    group_sessions(plan, index, bytes, frames, sessions, skips);
-}
-
-/// Splits one source's frames into sessions by key and idle gap, in order of first appearance.
-fn group_sessions(
-    plan: &Plan,
-    index: usize,
-    bytes: &[u8],
-    frames: Vec<Frame>,
-    sessions: &mut Vec<Session>,
-    skips: &mut Skips,
-) {
-    // key → (position in `sessions`, time of the last line)
-    let mut open: BTreeMap<Vec<u8>, (usize, Option<i64>)> = BTreeMap::new();
-    for frame in frames {
-        let line = &bytes[frame.range.clone()];
-        let key: Vec<u8> = match &plan.session_key {
-            Some(re) => match re.captures(line).and_then(|c| c.get(1)) {
-                Some(m) => m.as_bytes().to_vec(),
-                None => {
-                    skips.add("lines without a session key", 1);
-                    continue;
-                }
-            },
-            None => Vec::new(),
-        };
-        let now = plan.idle_gap_ms.and_then(|_| time::find_timestamp_ms(line));
-        let slot = open.get_mut(&key);
-        let continue_session = match (&slot, plan.idle_gap_ms) {
-            (Some((_, last)), Some(gap)) => match (last, now) {
-                (Some(last), Some(now)) => now.saturating_sub(*last) <= gap as i64,
-                _ => true,
-            },
-            (Some(_), None) => true,
-            (None, _) => false,
-        };
-        if continue_session {
-            let (pos, last) = slot.expect("checked above");
-            sessions[*pos].frames.push(frame);
-            if now.is_some() {
-                *last = now;
-            }
-        } else {
-            sessions.push(Session { source: index, frames: vec![frame] });
-            open.insert(key, (sessions.len() - 1, now));
-        }
-    }
+/// True when the first 64 KiB hold a NUL byte.
+fn looks_binary(bytes: &[u8]) -> bool {
+    memchr::memchr(0, &bytes[..bytes.len().min(64 << 10)]).is_some()
 }
 
 /// A line without its LF or CRLF terminator.
@@ -396,17 +448,6 @@ pub fn read_paths(paths: &[PathBuf], options: &ReadOptions) -> Result<Corpus, Re
         return Err(ReadError::NothingUsable { what, detail: " (no files)".into() });
     }
     read(load_sources(&files)?, options, &what)
-}
-
-/// Frames one in-memory byte string (a trace file, a fuzz input) as a single session.
-pub fn read_bytes(bytes: &[u8], options: &ReadOptions) -> (Vec<Vec<u8>>, Skips) {
-    let mut skips = Skips::default();
-    let format = options.format.unwrap_or(Format::Lines);
-    let frames = match format {
-        Format::Http => frame_http(bytes, &mut skips),
-        _ => frame_lines(bytes, &mut skips),
-    };
-    (frames.into_iter().map(|f| bytes[f.range].to_vec()).collect(), skips)
 }
 
 #[cfg(test)]

@@ -84,10 +84,16 @@ pub fn groups(model: &Compiled, message: &[u8]) -> Option<Vec<Group>> {
     let single = |p: OwnedPart, fixed: bool| Group { parts: vec![p], fixed };
     if model.tokenizer.format() != Format::Http {
         let n = parts.len();
-        return Some(parts.into_iter().enumerate().map(|(i, p)| {
-            let fixed = i + 1 == n && is_line_end(&p);
-            single(p, fixed)
-        }).collect());
+        return Some(
+            parts
+                .into_iter()
+                .enumerate()
+                .map(|(i, p)| {
+                    let fixed = i + 1 == n && is_line_end(&p);
+                    single(p, fixed)
+                })
+                .collect(),
+        );
     }
     let mut out = Vec::new();
     let mut line: Vec<OwnedPart> = Vec::new();

@@ -46,7 +46,16 @@ fn build(patterns: &[&str]) -> Result<Regex, String> {
         .syntax(syntax_config())
         .configure(Regex::config().utf8_empty(false))
         .build_many(patterns)
-        .map_err(|e| e.to_string())
+        .map_err(|e| one_line(&e.to_string()))
+}
+
+/// Regex errors come with a multi-line diagram; keep the line that says what is wrong.
+pub(crate) fn one_line(text: &str) -> String {
+    text.lines()
+        .rev()
+        .find_map(|l| l.trim().strip_prefix("error: "))
+        .unwrap_or_else(|| text.lines().next().unwrap_or(""))
+        .to_string()
 }
 
 impl Lexer {

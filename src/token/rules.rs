@@ -17,13 +17,13 @@ pub struct SlotRule {
     /// Regex (Rust regex syntax, byte-oriented, ASCII classes).
     pub pattern: String,
     /// Capture group holding the value; the rest of the match stays literal.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub group: Option<usize>,
     /// Re-classify the captured value against all classes.
-    #[serde(default, skip_serializing_if = "std::ops::Not::not")]
+    #[serde(default)]
     pub refine: bool,
     /// A second pattern the matched value must also contain.
-    #[serde(default, skip_serializing_if = "Option::is_none")]
+    #[serde(default)]
     pub requires: Option<String>,
 }
 
@@ -84,7 +84,7 @@ impl RuleSet {
             rules.extend(builtin.rules.into_iter().filter(|r| !file.disable.contains(&r.name)));
         }
         let set = RuleSet { rules };
-        set.validate(origin)?;
+        super::Lexer::new(&set, origin)?;
         Ok(set)
     }
 

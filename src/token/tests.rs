@@ -84,7 +84,7 @@ fn http_request_head_and_json_body() {
     let msg = b"POST /v1/carts/88/items?x=1 HTTP/1.1\r\nHost: api.crumb.example\r\nContent-Type: application/json\r\nContent-Length: 12\r\n\r\n{\"qty\":3}   ";
     assert_eq!(
         joined(Format::Http, msg),
-        "POST |/|v1|/|carts|/|{int=88}|/|items|?|x|=|{int=1}| HTTP/1.1|\\r\\n|Host: |api|.|crumb|.|example|\\r\\n|Content-Type: |application|/|json|\\r\\n|Content-Length: |{=len 12}|\\r\\n|\\r\\n|{body Length}|{|\"qty\"|:|{int=3}|}|   "
+        "POST |/|v1|/|carts|/|{int=88}|/|items|?|x|=|{int=1}| HTTP/1.1|\\r\\n|Host: |{host=api.crumb.example}|\\r\\n|Content-Type: |application|/|json|\\r\\n|Content-Length: |{=len 12}|\\r\\n|\\r\\n|{body Length}|{|\"qty\"|:|{int=3}|}|   "
     );
 }
 
