@@ -70,6 +70,9 @@ pub struct TargetArgs {
     /// Address-space limit of the target, e.g. 512M; running out is reported as `memory`.
     #[arg(long, value_name = "SIZE")]
     memory_limit: Option<String>,
+    /// Set an environment variable for the target, e.g. RUST_BACKTRACE=0 (repeatable).
+    #[arg(long, value_name = "NAME=VALUE")]
+    env: Vec<String>,
     /// Bytes kept from the start and from the end of each output stream.
     #[arg(long, default_value = "32K", value_name = "SIZE")]
     keep_output: String,
@@ -146,6 +149,14 @@ impl TargetArgs {
         };
         spec.oracles = oracles;
         spec.limits = Limits { memory_bytes };
+        spec.env = self
+            .env
+            .iter()
+            .map(|kv| match kv.split_once('=') {
+                Some((k, v)) if !k.is_empty() => Ok((k.to_string(), v.to_string())),
+                _ => Err(anyhow::anyhow!("--env: `{kv}` is not NAME=VALUE")),
+            })
+            .collect::<anyhow::Result<_>>()?;
         spec.capture_limit = usize::try_from(parse_size(&self.keep_output).context("--keep-output")?)
             .context("--keep-output")?
             .max(64);
@@ -204,6 +215,9 @@ impl TargetArgs {
         }
         if let Some(m) = &self.memory_limit {
             push("--memory-limit", Some(m.clone()));
+        }
+        for kv in &self.env {
+            push("--env", Some(kv.clone()));
         }
         push("--keep-output", Some(self.keep_output.clone()));
         a

@@ -41,6 +41,7 @@ fn spawn(
         None => command.argv_with(&[]),
     };
     let mut cmd = Command::new(&argv[0]);
+    cmd.envs(spec.env.iter().map(|(k, v)| (k, v)));
     cmd.args(&argv[1..])
         .stdin(if file.is_some() { Stdio::null() } else { Stdio::piped() })
         .stdout(Stdio::piped())
@@ -80,8 +81,15 @@ impl Target for ExecTarget {
                 });
             }
         }
-        // The end of stdout usually means the process is exiting; then its status comes at once.
-        stdout.wait_end(deadline);
+        // The end of stdout usually means the process is exiting; but a child it left behind
+        // may hold stdout open, so watch for its exit too.
+        let mut nap = Duration::from_micros(50);
+        while !stdout.wait_end((Instant::now() + nap).min(deadline))
+            && proc.try_status().is_none()
+            && Instant::now() < deadline
+        {
+            nap = (nap * 2).min(Duration::from_millis(5));
+        }
         let end = match proc.wait_until(deadline) {
             Some(status) => ProcessEnd::from_status(status),
             None => {
@@ -162,11 +170,21 @@ impl Target for SessionTarget {
             if reply.end == ReplyEnd::Silent && spec.framing.required() {
                 // As for TCP: end the input; a program that then answers or exits was waiting.
                 to_writer = None;
-                let after =
-                    read_reply(&mut replies_in, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
+                let after = read_reply(
+                    &mut replies_in,
+                    &spec.framing,
+                    &spec.timing,
+                    deadline,
+                    spec.capture_limit,
+                    owed,
+                );
                 reply = match after.end {
-                    ReplyEnd::Closed if after.bytes.is_empty() => super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue },
-                    ReplyEnd::Closed | ReplyEnd::Complete => super::Reply { bytes: after.bytes, end: ReplyEnd::Complete },
+                    ReplyEnd::Closed if after.bytes.is_empty() => {
+                        super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue }
+                    }
+                    ReplyEnd::Closed | ReplyEnd::Complete => {
+                        super::Reply { bytes: after.bytes, end: ReplyEnd::Complete }
+                    }
                     _ => after,
                 };
                 stop = true;

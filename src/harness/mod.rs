@@ -164,6 +164,8 @@ pub struct TargetSpec {
     pub limits: Limits,
     /// Bytes kept from the head and from the tail of each output stream.
     pub capture_limit: usize,
+    /// Environment variables set for the target (on top of tracewalk's own environment).
+    pub env: Vec<(String, String)>,
 }
 
 impl TargetSpec {
@@ -176,6 +178,7 @@ impl TargetSpec {
             oracles: Oracles::default(),
             limits: Limits::default(),
             capture_limit: 32 * 1024,
+            env: Vec::new(),
         }
     }
 

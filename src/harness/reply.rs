@@ -44,9 +44,11 @@ impl ReplyFraming {
                 let mut skips = Skips::default();
                 let frames = frame_http(sent, &mut skips);
                 let requests = frames.iter().filter(|f| f.role == Role::Request).count();
-                let unparseable = skips.by_reason.get("unparseable HTTP messages").copied().unwrap_or(0) as usize;
+                let unparseable =
+                    skips.by_reason.get("unparseable HTTP messages").copied().unwrap_or(0) as usize;
                 let tail = &sent[frames.last().map_or(0, |f| f.range.end)..];
-                let has_empty_line = |b: &[u8]| b.windows(4).any(|w| w == b"\r\n\r\n") || b.windows(2).any(|w| w == b"\n\n");
+                let has_empty_line =
+                    |b: &[u8]| b.windows(4).any(|w| w == b"\r\n\r\n") || b.windows(2).any(|w| w == b"\n\n");
                 let open_tail = !tail.iter().all(u8::is_ascii_whitespace) && !has_empty_line(tail);
                 requests + unparseable - usize::from(open_tail && unparseable > 0)
             }
@@ -59,7 +61,8 @@ impl ReplyFraming {
         match self {
             ReplyFraming::Http => {
                 let frames = frame_http(buf, &mut Skips::default());
-                frames.last().is_some_and(|f| f.range.end == buf.len()) || buf.iter().all(u8::is_ascii_whitespace)
+                frames.last().is_some_and(|f| f.range.end == buf.len())
+                    || buf.iter().all(u8::is_ascii_whitespace)
             }
             ReplyFraming::Lines { .. } => true,
         }
@@ -68,7 +71,8 @@ impl ReplyFraming {
     fn complete(&self, buf: &[u8], count: usize) -> bool {
         match self {
             ReplyFraming::Http => {
-                frame_http(buf, &mut Skips::default()).iter().filter(|f| f.role == Role::Reply).count() >= count
+                frame_http(buf, &mut Skips::default()).iter().filter(|f| f.role == Role::Reply).count()
+                    >= count
             }
             ReplyFraming::Lines { end: Some(re) } => {
                 let Some(body) = buf.strip_suffix(b"\n") else { return false };
@@ -172,7 +176,11 @@ pub(crate) fn read_reply(
                 return Reply { bytes, end };
             }
             Chunk::Closed => {
-                let end = if seen > bytes.len() || !framing.whole(&bytes) { ReplyEnd::Cut } else { ReplyEnd::Closed };
+                let end = if seen > bytes.len() || !framing.whole(&bytes) {
+                    ReplyEnd::Cut
+                } else {
+                    ReplyEnd::Closed
+                };
                 return Reply { bytes, end };
             }
         }
@@ -219,7 +227,11 @@ mod tests {
         assert_eq!(read_reply(&mut s, &framing, &timing(), far, 1 << 16, 1).end, ReplyEnd::Complete);
         let mut s = Script(vec![Chunk::Data(b"VAL 1\n".to_vec())]);
         let r = read_reply(&mut s, &framing, &timing(), far, 3, 1);
-        assert_eq!((r.end, r.bytes.as_slice()), (ReplyEnd::Cut, &b"VAL"[..]), "bytes beyond the limit were dropped");
+        assert_eq!(
+            (r.end, r.bytes.as_slice()),
+            (ReplyEnd::Cut, &b"VAL"[..]),
+            "bytes beyond the limit were dropped"
+        );
         let mut s = Script(vec![Chunk::Data(b"HTTP/1.1 400 Bad\r\nContent-Length: 0\r\n\r\n".to_vec())]);
         let r = read_reply(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16, 2);
         assert_eq!(r.end, ReplyEnd::Closed, "answered, then closed: nothing was cut");
@@ -236,7 +248,11 @@ mod tests {
         assert_eq!(h.replies_due(&[get.clone(), short_body.clone()].concat()), 1);
         assert_eq!(h.replies_due(&[get.clone(), short_body, b"defghi".to_vec()].concat()), 2);
         assert_eq!(h.replies_due(b"BROKEN\r\n\r\n"), 1);
-        assert_eq!(h.replies_due(&[get.clone(), b"}".to_vec()].concat()), 1, "an open tail is still arriving");
+        assert_eq!(
+            h.replies_due(&[get.clone(), b"}".to_vec()].concat()),
+            1,
+            "an open tail is still arriving"
+        );
         let lines = ReplyFraming::Lines { end: None };
         assert_eq!(lines.replies_due(b"PING\nSET a"), 1);
     }

@@ -65,6 +65,7 @@ impl TcpTarget {
         let port = self.addr.port().to_string();
         let argv = command.argv_with(&[("{port}", port.as_ref())]);
         let mut cmd = Command::new(&argv[0]);
+        cmd.envs(self.spec.env.iter().map(|(k, v)| (k, v)));
         cmd.args(&argv[1..]).stdin(Stdio::null()).stdout(Stdio::null()).stderr(Stdio::piped());
         let mut proc = Proc::spawn(cmd, self.spec.limits)
             .map_err(|source| HarnessError::Spawn { program: command.program().to_string(), source })?;
@@ -149,18 +150,36 @@ impl Target for TcpTarget {
                     }
                     let owed = due - answered;
                     answered = due;
-                    let mut reply =
-                        read_reply(&mut stream, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
-                    let mut stop = matches!(reply.end, ReplyEnd::Closed | ReplyEnd::Cut) || closes_connection(&reply.bytes);
+                    let mut reply = read_reply(
+                        &mut stream,
+                        &spec.framing,
+                        &spec.timing,
+                        deadline,
+                        spec.capture_limit,
+                        owed,
+                    );
+                    let mut stop = matches!(reply.end, ReplyEnd::Closed | ReplyEnd::Cut)
+                        || closes_connection(&reply.bytes);
                     if reply.end == ReplyEnd::Silent {
                         // Silence may mean the server waits for input we will never send (it
                         // parsed the stream differently): tell it the input ended. A server that
                         // then answers or closes was waiting; one that stays silent hangs.
                         let _ = stream.shutdown(std::net::Shutdown::Write);
-                        let after = read_reply(&mut stream, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
+                        let after = read_reply(
+                            &mut stream,
+                            &spec.framing,
+                            &spec.timing,
+                            deadline,
+                            spec.capture_limit,
+                            owed,
+                        );
                         reply = match after.end {
-                            ReplyEnd::Closed if after.bytes.is_empty() => super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue },
-                            ReplyEnd::Closed | ReplyEnd::Complete => super::Reply { bytes: after.bytes, end: ReplyEnd::Complete },
+                            ReplyEnd::Closed if after.bytes.is_empty() => {
+                                super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue }
+                            }
+                            ReplyEnd::Closed | ReplyEnd::Complete => {
+                                super::Reply { bytes: after.bytes, end: ReplyEnd::Complete }
+                            }
                             _ => after,
                         };
                         stop = true;
@@ -190,7 +209,9 @@ impl Target for TcpTarget {
         // reply may be dying; one that closed without a word may be unwinding from a panic;
         // one that answered everything, or announced the close, is fine.
         let hung = timed_out
-            || o.replies.iter().any(|r| matches!(r.end, ReplyEnd::Silent | ReplyEnd::Stalled | ReplyEnd::Cut));
+            || o.replies
+                .iter()
+                .any(|r| matches!(r.end, ReplyEnd::Silent | ReplyEnd::Stalled | ReplyEnd::Cut));
         let quiet_close =
             o.replies.last().is_some_and(|r| r.end == ReplyEnd::Closed && !closes_connection(&r.bytes));
         if let Some(server) = &mut self.server {
