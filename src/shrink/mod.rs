@@ -6,8 +6,9 @@
 //!
 //! 1. ddmin over whole messages ([`ddmin`]);
 //! 2. per message, ddmin over its tokens (the model's tokenizer splits it into literals, slot
-//!    values and derived fields; derived fields are recomputed when written back; parts whose
-//!    loss would leave a peer waiting for the rest of a message are kept, see [`parts`]);
+//!    values and derived fields; derived fields are recomputed when written back, and a message
+//!    whose derived fields were damaged is first tried with them repaired; parts whose loss
+//!    would leave a peer waiting for the rest of a message are kept, see [`parts`]);
 //! 3. per message, each slot value replaced by the most common value of its pool;
 //! 4. ddmin over messages again, so the result is 1-minimal with respect to removing one
 //!    message (removing any single message makes the failure go away).
@@ -179,6 +180,17 @@ fn shrink_tokens<P: FnMut(&[Vec<u8>]) -> bool>(
     i: usize,
     tester: &mut Tester<P>,
 ) {
+    if parts::split(model, &current[i].bytes).is_none() {
+        // Derived fields disagree with the message (or its pieces do not write it back): try
+        // it with them recomputed, which is simpler when the failure does not need the damage.
+        let mut candidate = bytes_of(current);
+        candidate[i] = parts::write(&parts::split_any(model, &current[i].bytes));
+        if candidate[i] == current[i].bytes || !tester.test(&candidate) {
+            return;
+        }
+        current[i].bytes = candidate[i].clone();
+        current[i].edited = true;
+    }
     let Some(groups) = parts::groups(model, &current[i].bytes) else { return };
     let removable: Vec<usize> = groups.iter().enumerate().filter(|(_, g)| !g.fixed).map(|(k, _)| k).collect();
     let mut candidate = bytes_of(current);

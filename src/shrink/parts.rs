@@ -42,10 +42,16 @@ pub fn write(parts: &[OwnedPart]) -> Vec<u8> {
 /// The parts of `message` under the model's tokenizer, or `None` when writing them back would
 /// not give the message exactly (then only whole-message shrinking applies to it).
 pub fn split(model: &Compiled, message: &[u8]) -> Option<Vec<OwnedPart>> {
+    let parts = split_any(model, message);
+    (write(&parts) == message).then_some(parts)
+}
+
+/// The parts of `message` even when writing them back gives other bytes: a message whose
+/// derived fields disagree with it (a skewed Content-Length) is written with them recomputed.
+pub fn split_any(model: &Compiled, message: &[u8]) -> Vec<OwnedPart> {
     let mut t = Tokenized::default();
     model.tokenizer.tokenize(message, &mut t);
-    let parts: Vec<OwnedPart> = t
-        .pieces
+    t.pieces
         .iter()
         .map(|p| match p.kind {
             PieceKind::Lit => OwnedPart::Lit(t.bytes(p).to_vec()),
@@ -53,8 +59,7 @@ pub fn split(model: &Compiled, message: &[u8]) -> Option<Vec<OwnedPart>> {
             PieceKind::Derived(d) => OwnedPart::Derived(d),
             PieceKind::Body(f) => OwnedPart::Body(f),
         })
-        .collect();
-    (write(&parts) == message).then_some(parts)
+        .collect()
 }
 
 /// For each slot part of `message` (by part index), the pool that fills it in the model.
