@@ -5,7 +5,8 @@
 //! seeds; shrunk trace lengths beside the planted minimal lengths.
 //!
 //! ```text
-//! cargo bench --bench hunt_figures -- [--seeds 5] [--budget 10000] [--baseline-budget 100000] [--jobs 2]
+//! cargo bench --bench hunt_figures -- [--seeds 5] [--budget 10000] [--baseline-budget 100000]
+//!     [--jobs 2] [--only lamp_hub|shop_server]
 //! ```
 //!
 //! A campaign stops at its budget or as soon as it has found every planted bug of its target.
@@ -173,10 +174,12 @@ struct Options {
     budget: u64,
     baseline_budget: u64,
     jobs: usize,
+    /// Only this target (lamp_hub or shop_server).
+    only: Option<String>,
 }
 
 fn parse_options() -> Options {
-    let mut o = Options { seeds: 5, budget: 10_000, baseline_budget: 100_000, jobs: 2 };
+    let mut o = Options { seeds: 5, budget: 10_000, baseline_budget: 100_000, jobs: 2, only: None };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < args.len() {
@@ -190,6 +193,7 @@ fn parse_options() -> Options {
             "--budget" => o.budget = value(i),
             "--baseline-budget" => o.baseline_budget = value(i),
             "--jobs" => o.jobs = value(i) as usize,
+            "--only" => o.only = args.get(i + 1).cloned(),
             // cargo bench passes --bench; anything else is a mistake worth knowing about.
             "--bench" => {
                 i += 1;
@@ -370,10 +374,24 @@ fn main() {
     );
     shop_spec.env = quick;
     shop_spec.timing = timing;
-    let subjects = [
-        subject("lamp_hub", "lamp-control", lamp_spec, &["lamp-order", "lamp-transition", "lamp-boundary"]),
-        subject("shop_server", "shop-api", shop_spec, &["shop-order", "shop-transition", "shop-boundary"]),
-    ];
+    let wanted = |name: &str| o.only.as_deref().is_none_or(|only| only == name);
+    let mut subjects = Vec::new();
+    if wanted("lamp_hub") {
+        subjects.push(subject(
+            "lamp_hub",
+            "lamp-control",
+            lamp_spec,
+            &["lamp-order", "lamp-transition", "lamp-boundary"],
+        ));
+    }
+    if wanted("shop_server") {
+        subjects.push(subject(
+            "shop_server",
+            "shop-api",
+            shop_spec,
+            &["shop-order", "shop-transition", "shop-boundary"],
+        ));
+    }
     println!(
         "hunt figures: {} seeds, modes up to {} runs, baselines up to {} runs, {} jobs",
         o.seeds, o.budget, o.baseline_budget, o.jobs
@@ -390,6 +408,12 @@ fn main() {
             let mut time = Duration::ZERO;
             for seed in 1..=o.seeds {
                 let (first, lengths, other, n, t) = campaign(s, arm, seed, &o, &mut targets);
+                eprintln!(
+                    "  {} {} seed {seed}: {n} runs in {:.1} s; first runs {first:?}",
+                    s.name,
+                    arm.name(),
+                    t.as_secs_f64()
+                );
                 runs += n;
                 time += t;
                 for (bug, run) in first {

@@ -97,6 +97,8 @@ fn shrunk_traces_are_one_minimal_by_brute_force() {
         lamp_model().to_str().unwrap(),
         "-o",
         output.to_str().unwrap(),
+        QUICK_PANICS[0],
+        QUICK_PANICS[1],
     ];
     let out = tracewalk(&args);
     assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
@@ -113,6 +115,31 @@ fn shrunk_traces_are_one_minimal_by_brute_force() {
             i + 1
         );
     }
+    // Raw traffic (a captured session with the hub's replies in it) is read as the model reads.
+    let raw = dir.join("captured.txt");
+    let mut captured = Vec::new();
+    for m in &messages(&long) {
+        captured.extend_from_slice(m);
+        captured.extend_from_slice(b"OK seen\n");
+    }
+    std::fs::write(&raw, &captured).unwrap();
+    let from_raw = dir.join("from-raw.trace");
+    let out = tracewalk(&[
+        "shrink",
+        raw.to_str().unwrap(),
+        "--exec",
+        lamp_hub().to_str().unwrap(),
+        "--model",
+        lamp_model().to_str().unwrap(),
+        "-o",
+        from_raw.to_str().unwrap(),
+        QUICK_PANICS[0],
+        QUICK_PANICS[1],
+    ]);
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    let shrunk = Trace::parse(&std::fs::read_to_string(&from_raw).unwrap()).unwrap();
+    assert_eq!(shrunk.messages.len(), 6);
+    assert_eq!(shrunk.get("source"), Some(raw.to_str().unwrap()));
     // A session that does not fail is left alone (exit 0).
     let ok = dir.join("ok.trace");
     std::fs::write(

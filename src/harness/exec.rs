@@ -7,7 +7,7 @@ use std::time::{Duration, Instant};
 
 use super::oracle::{Observation, ProcessEnd, ReplyEnd};
 use super::process::{Bounded, Collector, Proc};
-use super::reply::{ChunkSource, read_reply};
+use super::reply::{ChunkSource, read_after_end_of_input, read_reply};
 use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
 
 /// How long output may keep arriving after a process ended (descendants are killed with it, so
@@ -167,26 +167,18 @@ impl Target for SessionTarget {
             let mut reply =
                 read_reply(&mut replies_in, &spec.framing, &spec.timing, deadline, spec.capture_limit, owed);
             let mut stop = matches!(reply.end, ReplyEnd::Closed | ReplyEnd::Cut);
-            if reply.end == ReplyEnd::Silent && spec.framing.required() {
+            if matches!(reply.end, ReplyEnd::Silent | ReplyEnd::Stalled) && spec.framing.required() {
                 // As for TCP: end the input; a program that then answers or exits was waiting.
                 to_writer = None;
-                let after = read_reply(
+                reply = read_after_end_of_input(
                     &mut replies_in,
                     &spec.framing,
                     &spec.timing,
                     deadline,
                     spec.capture_limit,
                     owed,
+                    reply,
                 );
-                reply = match after.end {
-                    ReplyEnd::Closed if after.bytes.is_empty() => {
-                        super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue }
-                    }
-                    ReplyEnd::Closed | ReplyEnd::Complete => {
-                        super::Reply { bytes: after.bytes, end: ReplyEnd::Complete }
-                    }
-                    _ => after,
-                };
                 stop = true;
             }
             o.replies.push(reply);

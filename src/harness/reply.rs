@@ -143,8 +143,39 @@ pub(crate) fn read_reply(
     limit: usize,
     count: usize,
 ) -> Reply {
-    let mut bytes = Vec::new();
-    let mut seen = 0usize;
+    read_more(source, framing, timing, deadline, limit, count, Vec::new())
+}
+
+/// After the caller ended the input (half-closed a connection, closed stdin) because a reply
+/// was silent or stalled: reads on from what `first` holds. A peer that now answers, or closes
+/// without leaving a reply half-written, was waiting for input; one that stays silent hangs.
+pub(crate) fn read_after_end_of_input(
+    source: &mut impl ChunkSource,
+    framing: &ReplyFraming,
+    timing: &Timing,
+    deadline: Instant,
+    limit: usize,
+    count: usize,
+    first: Reply,
+) -> Reply {
+    let after = read_more(source, framing, timing, deadline, limit, count, first.bytes);
+    match after.end {
+        ReplyEnd::Closed if after.bytes.is_empty() => Reply { bytes: after.bytes, end: ReplyEnd::NotDue },
+        _ => after,
+    }
+}
+
+fn read_more(
+    source: &mut impl ChunkSource,
+    framing: &ReplyFraming,
+    timing: &Timing,
+    deadline: Instant,
+    limit: usize,
+    count: usize,
+    so_far: Vec<u8>,
+) -> Reply {
+    let mut seen = so_far.len();
+    let mut bytes = so_far;
     let mut last_data = Instant::now();
     loop {
         let now = Instant::now();
@@ -255,6 +286,42 @@ mod tests {
         );
         let lines = ReplyFraming::Lines { end: None };
         assert_eq!(lines.replies_due(b"PING\nSET a"), 1);
+    }
+
+    #[test]
+    fn after_the_end_of_input_a_waiting_peer_is_told_from_a_hanging_one() {
+        let far = Instant::now() + Duration::from_secs(5);
+        let one = b"HTTP/1.1 200 OK\r\nContent-Length: 0\r\n\r\n".to_vec();
+        let stalled = Reply { bytes: one.clone(), end: ReplyEnd::Stalled };
+        let mut s = Script(vec![Chunk::Data(b"HTTP/1.1 400 Bad\r\nContent-Length: 0\r\n\r\n".to_vec())]);
+        let r =
+            read_after_end_of_input(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16, 2, stalled.clone());
+        assert_eq!(r.end, ReplyEnd::Complete, "the second reply came once the input ended");
+        let mut s = Script(vec![]);
+        let r = read_after_end_of_input(&mut s, &ReplyFraming::Http, &timing(), far, 1 << 16, 2, stalled);
+        assert_eq!(r.end, ReplyEnd::Closed, "it answered what it could parse, then closed");
+        let silent = Reply { bytes: Vec::new(), end: ReplyEnd::Silent };
+        let r = read_after_end_of_input(
+            &mut Script(vec![]),
+            &ReplyFraming::Http,
+            &timing(),
+            far,
+            1 << 16,
+            1,
+            silent,
+        );
+        assert_eq!(r.end, ReplyEnd::NotDue, "it was only waiting for input");
+        let half = Reply { bytes: b"HTTP/1.1 200 OK\r\nContent-Le".to_vec(), end: ReplyEnd::Stalled };
+        let r = read_after_end_of_input(
+            &mut Script(vec![]),
+            &ReplyFraming::Http,
+            &timing(),
+            far,
+            1 << 16,
+            1,
+            half,
+        );
+        assert_eq!(r.end, ReplyEnd::Cut);
     }
 
     #[test]

@@ -12,7 +12,7 @@ use std::time::{Duration, Instant};
 
 use super::oracle::{Observation, ProcessEnd, ReplyEnd};
 use super::process::{Collector, Proc};
-use super::reply::read_reply;
+use super::reply::{read_after_end_of_input, read_reply};
 use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
 
 /// How long a crashing server may take to be seen as exited after the connection dropped.
@@ -160,28 +160,19 @@ impl Target for TcpTarget {
                     );
                     let mut stop = matches!(reply.end, ReplyEnd::Closed | ReplyEnd::Cut)
                         || closes_connection(&reply.bytes);
-                    if reply.end == ReplyEnd::Silent {
+                    if matches!(reply.end, ReplyEnd::Silent | ReplyEnd::Stalled) {
                         // Silence may mean the server waits for input we will never send (it
-                        // parsed the stream differently): tell it the input ended. A server that
-                        // then answers or closes was waiting; one that stays silent hangs.
+                        // parsed the stream differently): tell it the input ended.
                         let _ = stream.shutdown(std::net::Shutdown::Write);
-                        let after = read_reply(
+                        reply = read_after_end_of_input(
                             &mut stream,
                             &spec.framing,
                             &spec.timing,
                             deadline,
                             spec.capture_limit,
                             owed,
+                            reply,
                         );
-                        reply = match after.end {
-                            ReplyEnd::Closed if after.bytes.is_empty() => {
-                                super::Reply { bytes: after.bytes, end: ReplyEnd::NotDue }
-                            }
-                            ReplyEnd::Closed | ReplyEnd::Complete => {
-                                super::Reply { bytes: after.bytes, end: ReplyEnd::Complete }
-                            }
-                            _ => after,
-                        };
                         stop = true;
                     }
                     o.replies.push(reply);

@@ -223,7 +223,7 @@ fn new_finding(
         }
         // One more run records the shrunk trace's output and checks that it still fails.
         let check = target.run(&shrunk.bytes()).ok();
-        if !check.as_ref().and_then(|r| r.failure.as_ref()).is_some_and(|f| f.signature() == signature) {
+        if check.as_ref().and_then(|r| r.failure.as_ref()).is_none_or(|f| f.signature() != signature) {
             trace.set("replay-check", "did not fail again when rerun");
         }
         shrunk_report = check;
