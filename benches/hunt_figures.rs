@@ -366,7 +366,8 @@ fn main() {
     let timing = Timing { reply_timeout: Duration::from_millis(50), ..Timing::default() };
     let mut shop_spec = TargetSpec::new(
         TargetKind::Tcp {
-            addr: "127.0.0.1:47620".parse().unwrap(),
+            // Below Linux's ephemeral range (32768–60999), so no client socket holds it.
+            addr: "127.0.0.1:21620".parse().unwrap(),
             spawn: Some(CommandLine::parse(&format!("{} --port {{port}}", shop_bin.display())).unwrap()),
             start_timeout: Duration::from_secs(10),
         },

@@ -14,7 +14,8 @@ set -eu
 cd "$(dirname "$0")/.."
 target=${CARGO_TARGET_DIR:-target}
 out=$target/hunt-demo
-port=${HUNT_DEMO_PORT:-47400}
+# Below Linux's ephemeral range (32768–60999), so no client socket can hold it.
+port=${HUNT_DEMO_PORT:-21400}
 
 cargo build --release --quiet
 tw=$target/release/tracewalk

@@ -380,7 +380,8 @@ fn ctrl_c_stops_cleanly_keeping_findings() {
 #[test]
 fn tcp_hunt_restarts_the_server_and_shrinks_to_the_planted_length() {
     let dir = scratch("tcp");
-    let port = "48731";
+    // Ports below Linux's ephemeral range (32768–60999), so no client socket holds them.
+    let port = "21731";
     let spawn = format!("{} --port {{port}}", shop_server().display());
     let out = tracewalk(&[
         "hunt",
@@ -412,7 +413,7 @@ fn tcp_hunt_restarts_the_server_and_shrinks_to_the_planted_length() {
             "replay",
             path.to_str().unwrap(),
             "--tcp",
-            "127.0.0.1:48741",
+            "127.0.0.1:21741",
             "--spawn",
             &spawn,
             "-q",
