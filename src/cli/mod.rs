@@ -1,11 +1,14 @@
 //! Command-line interface.
 
 mod gen_cmd;
+mod hunt;
 mod learn;
 mod mutate;
+mod replay;
 mod score;
 mod seed;
 mod show;
+mod target;
 
 use std::path::PathBuf;
 
@@ -31,6 +34,12 @@ enum Command {
     Mutate(mutate::Args),
     /// Print each message's surprise under a model and flag the unusual ones.
     Score(score::Args),
+    /// Drive a target with generated traces; keep, shrink and store every distinct failure.
+    Hunt(hunt::Args),
+    /// Run one trace (or one session of raw traffic) on a target and report the verdict.
+    Replay(replay::ReplayArgs),
+    /// Shrink a failing trace (or raw session) to a small one that fails the same way.
+    Shrink(replay::ShrinkArgs),
     /// Write generated traces as a seed corpus for a coverage-guided engine (raw bytes, one
     /// file per trace, named by content hash).
     Seed(seed::Args),
@@ -75,6 +84,9 @@ pub fn run() -> i32 {
         Command::Gen(a) => gen_cmd::run(a),
         Command::Mutate(a) => mutate::run(a),
         Command::Score(a) => score::run(a),
+        Command::Hunt(a) => hunt::run(a),
+        Command::Replay(a) => replay::replay(a),
+        Command::Shrink(a) => replay::shrink(a),
         Command::Seed(a) => seed::run(a),
         Command::Merge(a) => merge(a),
         Command::Rules(a) if a.hostile => {
