@@ -122,7 +122,10 @@ fn with_flow_a_hunt_follows_the_ids_the_desk_issues_and_finds_its_bug() {
             }
         } else if let Some(id) = ticket_of(&m.bytes) {
             references += 1;
-            assert!(issued.contains(&id), "{text:?} names a ticket the desk did not issue before: {issued:?}");
+            assert!(
+                issued.contains(&id),
+                "{text:?} names a ticket the desk did not issue before: {issued:?}"
+            );
         }
     }
     assert!(references >= 3, "ASSIGN, PART and CLOSE name the ticket");
@@ -166,7 +169,10 @@ fn with_flow_a_hunt_follows_the_ids_the_desk_issues_and_finds_its_bug() {
     let small = requests(&shrunk);
     assert_eq!(small.len(), 4);
     assert!(shrunk.messages.iter().any(|m| m.is_reply() && m.bytes.starts_with(b"OK OPEN ticket=")));
-    assert!(shrunk.messages.iter().all(|m| m.marks.iter().all(|k| !k.starts_with("flow:"))), "no stale numbers");
+    assert!(
+        shrunk.messages.iter().all(|m| m.marks.iter().all(|k| !k.starts_with("flow:"))),
+        "no stale numbers"
+    );
     assert!(shrunk.get("replay-check").is_none());
     let verbs: Vec<&[u8]> = small.iter().map(|m| m.split(|&b| b == b' ').next().unwrap()).collect();
     assert_eq!(verbs, [&b"OPEN"[..], b"ASSIGN", b"PART", b"CLOSE"]);
@@ -235,7 +241,8 @@ fn shrinking_sent_bytes_keeps_an_open_whose_id_a_later_open_depends_on() {
     assert!(desk_crashes(seed, &messages));
     let dir = scratch("flow-stale");
     let input = dir.join("long.trace");
-    let trace = Trace { header: Vec::new(), messages: messages.iter().cloned().map(TraceMessage::new).collect() };
+    let trace =
+        Trace { header: Vec::new(), messages: messages.iter().cloned().map(TraceMessage::new).collect() };
     std::fs::write(&input, trace.to_text()).unwrap();
     let output = dir.join("small.trace");
     let seed_env = format!("TICKET_DESK_SEED={seed}");
@@ -264,9 +271,9 @@ fn shrinking_sent_bytes_keeps_an_open_whose_id_a_later_open_depends_on() {
     assert_eq!(small.len(), 5, "both OPENs, ASSIGN, PART, CLOSE: {text:?}");
     assert_eq!(text.iter().filter(|t| t.starts_with("OPEN")).count(), 2, "{text:?}");
     assert!(desk_crashes(seed, &small));
-    for i in 0..small.len() {
+    for (i, line) in text.iter().enumerate() {
         let mut less = small.clone();
         less.remove(i);
-        assert!(!desk_crashes(seed, &less), "removing {:?} keeps the crash", text[i]);
+        assert!(!desk_crashes(seed, &less), "removing {line:?} keeps the crash");
     }
 }

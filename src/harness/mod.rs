@@ -310,6 +310,23 @@ mod tests {
     use super::*;
 
     #[test]
+    fn a_target_without_replies_hears_the_whole_conversation_at_once() {
+        let mut seen = Vec::new();
+        let mut target = property::FnTarget::new(|m: &[Vec<u8>]| {
+            seen.push(m.to_vec());
+            Ok(())
+        });
+        assert!(!target.replies());
+        let messages = vec![b"a\n".to_vec(), b"b\n".to_vec()];
+        let mut script = Scripted::new(&messages);
+        let mut boxed: Box<dyn Target + '_> = Box::new(&mut target);
+        assert!(boxed.converse(&mut script).unwrap().failure.is_none());
+        drop(boxed);
+        assert!(script.replies.is_empty(), "no replies were read");
+        assert_eq!(seen, vec![messages]);
+    }
+
+    #[test]
     fn refuses_remote_addresses_unless_allowed() {
         assert!(resolve_tcp("127.0.0.1:80", false).is_ok());
         assert!(resolve_tcp("[::1]:80", false).is_ok());

@@ -6,8 +6,8 @@ use std::time::{Duration, Instant};
 
 use rustc_hash::FxHashMap;
 
-use super::store::{Resume, Store, StoredFinding};
 use super::source::RunInput;
+use super::store::{Resume, Store, StoredFinding};
 use super::{Finding, HuntError, HuntOptions, Observer, Progress, StopReason, Summary, TraceSource};
 use crate::generate::live::LiveSession;
 use crate::harness::{Conversation, Failure, HarnessError, Report, Scripted, Target, shell_quote};
@@ -95,7 +95,8 @@ pub fn hunt(
         let planned: Vec<RunInput> = (runs..runs + batch)
             .map(|i| if replies { source.run_input(i) } else { RunInput::Fixed(source.trace(i)) })
             .collect();
-        let mut played = planned.into_iter().map(|p| Played::new(p, source.model())).collect::<Result<Vec<_>, _>>()?;
+        let mut played =
+            planned.into_iter().map(|p| Played::new(p, source.model())).collect::<Result<Vec<_>, _>>()?;
         let results = execute(targets, &mut played, options.stop.as_deref());
         let sent: Vec<(Trace, Vec<Vec<u8>>)> = played.into_iter().map(Played::sent).collect();
         for ((trace, messages), result) in sent.into_iter().zip(results) {
