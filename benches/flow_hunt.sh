@@ -42,10 +42,11 @@ for variant in live whole off; do
         esac
         dir="$tmp/$variant-$seed"
         # The desk issues ids from its own seed, the same for every session of a hunt, so
-        # a finding replays; a different desk seed per hunt seed.
+        # a finding replays; a different desk seed per hunt seed. It answers every command at
+        # once: the long reply timeout only keeps a loaded machine from dropping a reply.
         found[$variant,$seed]=$("$TRACEWALK" hunt "$tmp/desk.model" --exec "$tmp/ticket_desk" \
             "${target[@]}" "${flow[@]}" --reply-end '^(OK|ERR|VAL ticket=[0-9]+ state)' \
-            --env "TICKET_DESK_SEED=$seed" --env RUST_BACKTRACE=0 --seed "$seed" \
+            --env "TICKET_DESK_SEED=$seed" --env RUST_BACKTRACE=0 --reply-timeout 2s --seed "$seed" \
             --budget "$budget" --no-shrink --json -o "$dir" 2>/dev/null | first_run || true)
     done
 done

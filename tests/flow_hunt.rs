@@ -38,6 +38,10 @@ fn desk_args() -> Vec<String> {
         &format!("TICKET_DESK_SEED={SEED}"),
         "--env",
         "RUST_BACKTRACE=0",
+        // The desk answers every command at once; the margin is for a loaded machine, where a
+        // reply missed would leave a session without the id it needs.
+        "--reply-timeout",
+        "2s",
     ]
     .iter()
     .map(|s| s.to_string())
@@ -140,6 +144,7 @@ fn with_flow_a_hunt_follows_the_ids_the_desk_issues_and_finds_its_bug() {
         ReplyFraming::Lines { end: Some(regex::bytes::Regex::new(REPLY_END).unwrap()) },
     );
     spec.env = vec![("TICKET_DESK_SEED".into(), SEED.into()), ("RUST_BACKTRACE".into(), "0".into())];
+    spec.timing.reply_timeout = std::time::Duration::from_secs(2);
     let mut target = spec.build(0).unwrap();
     let mut script = Scripted::new(&sent);
     let report = target.converse(&mut script).unwrap();
@@ -259,6 +264,8 @@ fn shrinking_sent_bytes_keeps_an_open_whose_id_a_later_open_depends_on() {
         &seed_env,
         "--env",
         "RUST_BACKTRACE=0",
+        "--reply-timeout",
+        "2s",
         "--model",
         desk_model().to_str().unwrap(),
         "-o",
