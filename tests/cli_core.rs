@@ -211,3 +211,26 @@ fn binary_and_yaml_encodings_hold_the_same_model() {
     let g2 = tracewalk(&["gen", bin.to_str().unwrap(), "-n", "3"]);
     assert_eq!(g1.stdout, g2.stdout);
 }
+
+#[test]
+fn a_reader_that_goes_away_ends_gen_quietly() {
+    use std::io::{BufRead, BufReader};
+    use std::os::unix::process::ExitStatusExt;
+    let dir = tempfile::tempdir().unwrap();
+    let model = learn(dir.path(), "lamp-control", &[]);
+    // Like `tracewalk gen … | head -1`: far more output than a pipe holds, read one line, close.
+    let mut child = std::process::Command::new(env!("CARGO_BIN_EXE_tracewalk"))
+        .args(["gen", model.to_str().unwrap(), "-n", "100000"])
+        .stdout(std::process::Stdio::piped())
+        .stderr(std::process::Stdio::piped())
+        .spawn()
+        .unwrap();
+    let mut first = String::new();
+    BufReader::new(child.stdout.take().unwrap()).read_line(&mut first).unwrap();
+    assert!(first.starts_with('%'), "{first}");
+    let out = child.wait_with_output().unwrap();
+    let err = String::from_utf8_lossy(&out.stderr);
+    assert!(!err.contains("panicked"), "{err}");
+    // Ended by SIGPIPE, as Unix filters are (common practice: the shell reports 141).
+    assert_eq!(out.status.signal(), Some(libc::SIGPIPE), "{:?} {err}", out.status);
+}

@@ -68,7 +68,8 @@ pub struct Args {
     /// Store findings as found, without shrinking.
     #[arg(long)]
     no_shrink: bool,
-    /// Reruns a new failure must fail again to count as reproducible (else it is flaky).
+    /// Reruns a new failure must fail again to count as reproducible (else it is flaky); each
+    /// failing candidate while shrinking is rerun as often.
     #[arg(long, default_value_t = 1)]
     confirm: u32,
     /// Print one JSON object at the end instead of the summary.

@@ -78,6 +78,11 @@ pub fn run() -> i32 {
             return if e.use_stderr() { 2 } else { 0 };
         }
     };
+    // Commands that drive a target keep SIGPIPE ignored (a target closing its pipe fails one
+    // write); the others end quietly when their reader goes away, like any Unix filter.
+    if !matches!(cli.command, Command::Hunt(_) | Command::Replay(_) | Command::Shrink(_)) {
+        tracewalk::harness::default_sigpipe();
+    }
     let result = match cli.command {
         Command::Learn(a) => learn::run(a),
         Command::Show(a) => show::run(a),

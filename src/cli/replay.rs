@@ -42,6 +42,9 @@ pub struct ShrinkArgs {
     /// Most target runs to spend.
     #[arg(long, default_value_t = 2000, value_name = "RUNS")]
     shrink_runs: usize,
+    /// Reruns that must reproduce each failing candidate (0 trusts a single run).
+    #[arg(long, default_value_t = 1)]
+    confirm: u32,
     /// Write the shrunk trace here instead of standard output.
     #[arg(short, long, value_name = "FILE")]
     output: Option<PathBuf>,
@@ -90,7 +93,9 @@ pub fn shrink(a: ShrinkArgs) -> anyhow::Result<i32> {
     let options =
         ShrinkOptions { max_calls: a.shrink_runs, stop: Some(tracewalk::harness::interrupt_flag()) };
     let messages = messages_of(&trace);
-    let Some((report, shrunk)) = shrink_failure(target.as_mut(), &messages, model.as_ref(), &options)? else {
+    let Some((report, shrunk)) =
+        shrink_failure(target.as_mut(), &messages, model.as_ref(), &options, a.confirm)?
+    else {
         eprintln!("{}: does not fail ({} messages); nothing to shrink", a.trace.display(), messages.len());
         return Ok(0);
     };

@@ -37,7 +37,7 @@ pub use command::{CommandError, CommandLine, shell_quote};
 pub use oracle::{ExitCodes, Observation, Oracles, ProcessEnd, Reply, ReplyEnd, StatusClass};
 pub use process::Captured;
 pub use reply::ReplyFraming;
-pub use sys::{Limits, interrupt_flag, signal_name};
+pub use sys::{Limits, default_sigpipe, interrupt_flag, signal_name};
 
 /// Errors of the harness stage: the target could not be driven at all (as opposed to a
 /// failure of the target, which is a [`Failure`]).

@@ -4,7 +4,9 @@
 //! - waiting for a child's exit without reaping it, so its process id (and so its group id)
 //!   cannot be reused before the group is killed,
 //! - resource limits set in the child between fork and exec,
-//! - a SIGINT/SIGTERM handler that only raises a flag.
+//! - a SIGINT/SIGTERM handler that only raises a flag,
+//! - the default action for SIGPIPE in commands that only print (so `tracewalk show | head`
+//!   ends quietly, as Unix filters do).
 //!
 //! Each function states why its use of `unsafe` is sound.
 
@@ -151,5 +153,16 @@ pub fn confine(cmd: &mut std::process::Command, limits: Limits) {
     // async-signal-safe; it allocates nothing and touches no lock.
     unsafe {
         cmd.pre_exec(move || apply_limits(limits));
+    }
+}
+
+/// Restores the default action of SIGPIPE (terminate) that Rust's runtime replaces by "ignore".
+/// Only for commands that write to nothing but their own standard output and files: a command
+/// that drives a target must keep SIGPIPE ignored, or a target closing its end of a pipe would
+/// kill tracewalk instead of failing one write.
+pub fn default_sigpipe() {
+    // SAFETY: signal(2) with SIG_DFL installs no handler of ours; it reads no memory of ours.
+    unsafe {
+        libc::signal(libc::SIGPIPE, libc::SIG_DFL);
     }
 }

@@ -18,8 +18,13 @@ use super::{CommandLine, Conversation, HarnessError, Report, Scripted, Target, T
 /// How long a crashing server may take to be seen as exited after the connection dropped.
 const EXIT_GRACE: Duration = Duration::from_millis(500);
 /// How long a server that closed the connection without a word may take to be seen as exited
-/// (a panicking Rust server drops its connections while unwinding, just before it exits).
-const CLOSE_GRACE: Duration = Duration::from_millis(100);
+/// (a panicking Rust server drops its connections while unwinding, just before it exits). As
+/// long as for a silent one: on a loaded machine a dying server can take a few hundred
+/// milliseconds to exit, and a crash seen late is either missed or blamed on the next trace.
+/// Servers that close on purpose mostly say so (`Connection: close`), which costs no wait.
+const CLOSE_GRACE: Duration = EXIT_GRACE;
+/// The longer wait for a server that wrote to stderr during the grace above but did not exit.
+const DYING_GRACE: Duration = Duration::from_secs(3);
 
 #[derive(Debug)]
 struct Server {
@@ -224,7 +229,15 @@ impl Target for TcpTarget {
             } else {
                 Duration::ZERO
             };
-            match server.proc.wait_until((Instant::now() + grace).min(deadline.max(Instant::now()))) {
+            let written = server.stderr.snapshot().total;
+            let mut exited =
+                server.proc.wait_until((Instant::now() + grace).min(deadline.max(Instant::now())));
+            if exited.is_none() && !grace.is_zero() && server.stderr.snapshot().total > written {
+                // It closed or stopped answering, then wrote to stderr without exiting: most
+                // likely dying slowly (a backtrace on a loaded machine). Wait longer.
+                exited = server.proc.wait_until(Instant::now() + DYING_GRACE);
+            }
+            match exited {
                 Some(status) => {
                     o.end = ProcessEnd::from_status(status);
                     o.stderr = server.stderr.finish(Instant::now() + Duration::from_millis(200));

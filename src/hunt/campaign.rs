@@ -260,6 +260,19 @@ fn same_failure(target: &mut dyn Target, messages: &[Vec<u8>], signature: &str) 
     target.run(messages).ok().and_then(|r| r.failure).is_some_and(|f| f.signature() == signature)
 }
 
+/// The shrinking predicate: `candidate` fails with `signature`, and again on each of `confirm`
+/// reruns. A candidate that passes costs one run; one that fails is rerun, so a failure seen in
+/// the wrong run (a server still dying of the previous trace when the next one connects) or a
+/// flaky one cannot steer shrinking toward a trace that does not fail by itself.
+pub(super) fn fails_repeatably(
+    target: &mut dyn Target,
+    candidate: &[Vec<u8>],
+    signature: &str,
+    confirm: u32,
+) -> bool {
+    (0..=confirm).all(|_| same_failure(target, candidate, signature))
+}
+
 /// Confirms, shrinks and stores a new failure.
 #[allow(clippy::too_many_arguments)]
 fn new_finding(
@@ -292,8 +305,9 @@ fn new_finding(
         // target that issues the same values for the same session (ids from a fixed seed, a
         // counter) keeps failing on them; when dropping a message would change the values it
         // issues later, the copies go stale, the candidate passes, and the message is kept.
-        let shrunk =
-            shrink(messages, model, shrink_options, |candidate| same_failure(target, candidate, &signature));
+        let shrunk = shrink(messages, model, shrink_options, |candidate| {
+            fails_repeatably(target.as_mut(), candidate, &signature, options.confirm)
+        });
         shrink_runs = shrunk.calls;
         let mut trace = shrunk.to_trace(&sent_requests(&original), model);
         trace.set("shrunk-from", format!("{} messages", messages.len()));

@@ -62,7 +62,8 @@ pub struct HuntOptions {
     pub time: Option<Duration>,
     /// How to shrink new findings; `None` stores them unshrunk.
     pub shrink: Option<ShrinkOptions>,
-    /// Reruns that must reproduce a new failure before it is shrunk (else it is flaky).
+    /// Reruns that must reproduce a new failure before it is shrunk (else it is flaky), and
+    /// that must reproduce each failing candidate while shrinking.
     pub confirm: u32,
     /// Raised from outside (Ctrl-C) to stop cleanly.
     pub stop: Option<Arc<AtomicBool>>,
@@ -172,19 +173,22 @@ pub trait Observer {
 pub struct Quiet;
 impl Observer for Quiet {}
 
-/// Runs `messages` on `target` and, if they fail, shrinks them keeping the failure's signature.
-/// Returns `None` when the messages do not fail. The failing report is the original run's.
+/// Runs `messages` on `target` and, if they fail, shrinks them keeping the failure's signature;
+/// a candidate counts as failing only if it fails again on each of `confirm` reruns (see
+/// [`HuntOptions::confirm`]). Returns `None` when the messages do not fail. The failing report
+/// is the original run's.
 pub fn shrink_failure(
     target: &mut dyn Target,
     messages: &[Vec<u8>],
     model: Option<&Compiled>,
     options: &ShrinkOptions,
+    confirm: u32,
 ) -> Result<Option<(Report, Shrunk)>, HarnessError> {
     let report = target.run(messages)?;
     let Some(failure) = &report.failure else { return Ok(None) };
     let signature = failure.signature();
     let shrunk = shrink(messages, model, options, |candidate| {
-        target.run(candidate).ok().and_then(|r| r.failure).is_some_and(|f| f.signature() == signature)
+        campaign::fails_repeatably(target, candidate, &signature, confirm)
     });
     Ok(Some((report, shrunk)))
 }
