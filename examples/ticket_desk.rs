@@ -14,9 +14,14 @@
 //! [`Desk::handle`] returns the crash as an error so that it can also be driven in process;
 //! `main` turns it into the panic.
 //!
-//! Build: `cargo build --example ticket_desk`. Run:
-//! `printf 'HELLO counter-1\nOPEN bike=4411 issue=brakes\n' | target/debug/examples/ticket_desk`.
-//! `TICKET_DESK_SEED=N` fixes the ids it issues (default: a per-process random seed).
+//! Build: `cargo build --example ticket_desk`, or with `rustc --edition 2024 -O
+//! examples/ticket_desk.rs` (std only). Run:
+//! `printf 'HELLO counter-1\nOPEN bike=4411 issue=brakes\n' | target/debug/examples/ticket_desk`
+//! (one session on stdin), or `ticket_desk --port 7410` (a loopback TCP server, one session per
+//! connection). `TICKET_DESK_SEED=N` fixes the ids it issues (default: a per-process random
+//! seed): a hunt needs it fixed, since its findings are replayed and shrunk as the bytes sent,
+//! ids included (`tracewalk hunt desk.model --exec ticket_desk --per-message --env
+//! TICKET_DESK_SEED=1`, or `--tcp 127.0.0.1:7410 --spawn 'ticket_desk --port {port}'`).
 
 use std::collections::BTreeMap;
 use std::io::{self, BufRead, Write};
@@ -161,6 +166,28 @@ impl Desk {
     }
 }
 
+/// Answers one client session: command lines from `input`, reply lines to `output`, until
+/// `BYE` or the end of the input. The planted crash panics.
+#[allow(dead_code)]
+fn serve(desk: &mut Desk, input: impl BufRead, mut output: impl Write) {
+    for line in input.lines() {
+        let Ok(line) = line else { break };
+        let line = line.trim_end_matches('\r');
+        let replies = match desk.handle(line) {
+            Ok(r) => r,
+            Err(Crash(text)) => panic!("{text}"),
+        };
+        for reply in replies {
+            if writeln!(output, "{reply}").and_then(|_| output.flush()).is_err() {
+                return;
+            }
+        }
+        if line == "BYE" {
+            break;
+        }
+    }
+}
+
 #[allow(dead_code)]
 fn main() {
     let seed = std::env::var("TICKET_DESK_SEED").ok().and_then(|s| s.parse().ok()).unwrap_or_else(|| {
@@ -169,23 +196,33 @@ fn main() {
         h.write_u32(std::process::id());
         h.finish()
     });
-    let mut desk = Desk::new(seed);
-    let stdin = io::stdin();
-    let mut out = io::stdout().lock();
-    for line in stdin.lock().lines() {
-        let Ok(line) = line else { break };
-        let line = line.trim_end_matches('\r');
-        let replies = match desk.handle(line) {
-            Ok(r) => r,
-            Err(Crash(text)) => panic!("{text}"),
-        };
-        for reply in replies {
-            if writeln!(out, "{reply}").and_then(|_| out.flush()).is_err() {
-                return;
+    let args: Vec<String> = std::env::args().skip(1).collect();
+    match args.as_slice() {
+        [] => serve(&mut Desk::new(seed), io::stdin().lock(), io::stdout().lock()),
+        [flag, port] if flag == "--port" => {
+            let Ok(port) = port.parse::<u16>() else {
+                eprintln!("ticket_desk: --port {port}: not a port number");
+                std::process::exit(2);
+            };
+            let listener = match std::net::TcpListener::bind(("127.0.0.1", port)) {
+                Ok(l) => l,
+                Err(e) => {
+                    eprintln!("ticket_desk: cannot listen on 127.0.0.1:{port}: {e}");
+                    std::process::exit(2);
+                }
+            };
+            // One connection at a time, each a session with a desk of its own (same seed, so
+            // the same session gets the same ids); the planted crash takes the server down.
+            for stream in listener.incoming() {
+                let Ok(stream) = stream else { continue };
+                let Ok(reader) = stream.try_clone() else { continue };
+                // Whole lines per write: a line in two segments would wait on the peer's ack.
+                serve(&mut Desk::new(seed), io::BufReader::new(reader), io::BufWriter::new(stream));
             }
         }
-        if line == "BYE" {
-            break;
+        _ => {
+            eprintln!("usage: ticket_desk [--port PORT]   (without --port: one session on stdin)");
+            std::process::exit(2);
         }
     }
 }

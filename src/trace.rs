@@ -91,6 +91,11 @@ impl Trace {
         self.messages.iter().filter(|m| !m.is_reply()).flat_map(|m| m.bytes.iter().copied()).collect()
     }
 
+    /// How many messages are sent (those not marked `reply`).
+    pub fn wire_messages(&self) -> usize {
+        self.messages.iter().filter(|m| !m.is_reply()).count()
+    }
+
     /// Every message's bytes concatenated, replies included: the conversation as it would
     /// travel in both directions (readable by `learn` like a capture).
     pub fn conversation_bytes(&self) -> Vec<u8> {

@@ -39,6 +39,11 @@ pub struct Args {
     /// Rare mode: no hostile values, only forced steps.
     #[arg(long, conflicts_with = "hostile")]
     no_hostile: bool,
+    /// Fill every slot from its pool independently instead of reproducing the learned value
+    /// flow. With flow on (the default) and a target that replies message by message
+    /// (--per-message, --tcp), each session's copied values are the ones the target returned.
+    #[arg(long)]
+    no_flow: bool,
     /// Longest trace in messages.
     #[arg(long, default_value_t = 200)]
     max_messages: usize,
@@ -107,7 +112,7 @@ impl Observer for Console {
             (Some(t), false) => format!(
                 "shrunk {} → {} messages in {} runs",
                 f.original_messages,
-                t.messages.len(),
+                t.wire_messages(),
                 f.shrink_runs
             ),
             (None, false) => "not shrunk".to_string(),
@@ -142,10 +147,12 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
         rare_min: a.rare_min,
         hostile_rate: a.hostile_rate,
         hostile,
+        flow: !a.no_flow,
         ..GenOptions::default()
     };
     let generator = Generator::new(&compiled, options)?;
-    let mut source = ModelSource::new(generator, a.seed);
+    let live = !a.no_flow && !compiled.flow.is_empty() && targets[0].replies();
+    let mut source = ModelSource::new(generator, a.seed).with_live_replies(live);
     let identity = tracewalk::hunt::TraceSource::identity(&source);
     let (store, resume) = Store::open(&a.output, &identity, &targets[0].describe())?;
     let stop = interrupt_flag();
@@ -212,7 +219,7 @@ fn json_summary(s: &Summary, dir: &std::path::Path) -> serde_json::Value {
                 "original": f.original_path().map(|p| p.display().to_string()),
                 "shrunk": f.shrunk_path().map(|p| p.display().to_string()),
                 "original_messages": f.original_messages,
-                "shrunk_messages": f.shrunk.as_ref().map(|t| t.messages.len()),
+                "shrunk_messages": f.shrunk.as_ref().map(|t| t.wire_messages()),
                 "shrink_runs": f.shrink_runs,
             })
         })
@@ -267,7 +274,7 @@ fn print_summary(s: &Summary, dir: &std::path::Path, brief: bool) {
             (Some(t), _) => format!(
                 "shrunk from {} to {} messages in {} runs",
                 f.original_messages,
-                t.messages.len(),
+                t.wire_messages(),
                 f.shrink_runs
             ),
             (None, _) => format!("{} messages, not shrunk", f.original_messages),

@@ -66,7 +66,7 @@ pub fn replay(a: ReplayArgs) -> anyhow::Result<i32> {
         let _ = out.write_all(&report.transcript);
         let _ = out.flush();
     }
-    let n = trace.messages.len();
+    let n = trace.wire_messages();
     match &report.failure {
         Some(f) => {
             println!("FAIL after {n} messages in {} ms: {}", report.elapsed.as_millis(), describe(f));

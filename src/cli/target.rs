@@ -276,9 +276,10 @@ pub fn load_input(
     Ok((trace, corpus.format))
 }
 
-/// The messages of a trace as byte strings.
+/// The messages of a trace as byte strings, without those marked `reply` (what the target
+/// answered when the trace was stored; never sent).
 pub fn messages_of(trace: &Trace) -> Vec<Vec<u8>> {
-    trace.messages.iter().map(|m| m.bytes.clone()).collect()
+    trace.messages.iter().filter(|m| !m.is_reply()).map(|m| m.bytes.clone()).collect()
 }
 
 #[cfg(test)]

@@ -8,7 +8,7 @@ use std::time::{Duration, Instant};
 use super::oracle::{Observation, ProcessEnd, ReplyEnd};
 use super::process::{Bounded, Collector, Proc};
 use super::reply::{ChunkSource, read_after_end_of_input, read_reply};
-use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
+use super::{CommandLine, Conversation, HarnessError, Report, Scripted, Target, TargetSpec};
 
 /// How long output may keep arriving after a process ended (descendants are killed with it, so
 /// this only matters for one that escaped its group).
@@ -127,6 +127,14 @@ impl SessionTarget {
 
 impl Target for SessionTarget {
     fn run(&mut self, messages: &[Vec<u8>]) -> Result<Report, HarnessError> {
+        self.converse(&mut Scripted::new(messages))
+    }
+
+    fn replies(&self) -> bool {
+        true
+    }
+
+    fn converse(&mut self, conversation: &mut dyn Conversation) -> Result<Report, HarnessError> {
         let start = Instant::now();
         let spec = &self.spec;
         let deadline = start + spec.timing.run_timeout;
@@ -148,18 +156,20 @@ impl Target for SessionTarget {
         let mut timed_out = false;
         let mut sent: Vec<u8> = Vec::new();
         let mut answered = 0;
-        for message in messages {
+        loop {
             if Instant::now() >= deadline {
                 timed_out = true;
                 break;
             }
-            if to_writer.as_ref().is_none_or(|w| w.send(message.clone()).is_err()) {
+            let Some(message) = conversation.next_message() else { break };
+            sent.extend_from_slice(&message);
+            if to_writer.as_ref().is_none_or(|w| w.send(message).is_err()) {
                 break;
             }
-            sent.extend_from_slice(message);
             let due = spec.framing.replies_due(&sent);
             if due <= answered {
                 o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::NotDue });
+                conversation.observe_reply(&[]);
                 continue;
             }
             let owed = due - answered;
@@ -181,6 +191,7 @@ impl Target for SessionTarget {
                 );
                 stop = true;
             }
+            conversation.observe_reply(&reply.bytes);
             o.replies.push(reply);
             if stop {
                 break;

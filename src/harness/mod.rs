@@ -1,6 +1,8 @@
 //! Stage 6: traces → target runs → verdicts.
 //!
-//! A [`Target`] takes the messages of one trace and says whether it failed. Targets here:
+//! A [`Target`] takes the messages of one trace and says whether it failed; targets that reply
+//! message by message can also run a [`Conversation`], whose next message depends on the
+//! replies so far ([`Target::converse`]). Targets here:
 //!
 //! - [`exec::ExecTarget`]: one process per trace; the trace's bytes on stdin, or in an owner-only
 //!   temporary file whose path replaces `{file}` in the arguments;
@@ -102,6 +104,70 @@ pub trait Target {
     fn describe(&self) -> String {
         "in-process target".to_string()
     }
+
+    /// Whether the target answers message by message, so that a [`Conversation`] can hear each
+    /// reply before it chooses the next message. False by default.
+    fn replies(&self) -> bool {
+        false
+    }
+
+    /// Runs one session whose messages may depend on the target's replies: the conversation
+    /// is asked for a message, the message is sent, its reply is read (with the framing and
+    /// timeouts of [`Target::run`]) and handed back, and so on until the conversation has no
+    /// more messages or the target stops answering. Same contract as [`Target::run`]; a
+    /// target that [`replies`](Target::replies) must give the same verdict as `run` on the
+    /// messages the conversation handed out.
+    ///
+    /// The default, for targets that take a whole trace at once: every message is collected
+    /// first (no replies are observed), then [`Target::run`].
+    fn converse(&mut self, conversation: &mut dyn Conversation) -> Result<Report, HarnessError> {
+        let mut messages = Vec::new();
+        while let Some(m) = conversation.next_message() {
+            messages.push(m);
+        }
+        self.run(&messages)
+    }
+}
+
+/// A session told as it goes: the next message may depend on what the target answered to the
+/// earlier ones (see [`Target::converse`]). Pull rather than push, so that the target keeps
+/// the timing (a reply read with its timeout, a deadline for the whole run) and the
+/// conversation keeps the choice of words.
+pub trait Conversation {
+    /// The next message to send; `None` ends the session.
+    fn next_message(&mut self) -> Option<Vec<u8>>;
+
+    /// What the target answered to the message last handed out: the bytes read within the
+    /// reply timeout, empty when it said nothing (or nothing was due). Not called for a message
+    /// that could not be sent.
+    fn observe_reply(&mut self, reply: &[u8]);
+}
+
+/// Fixed messages as a [`Conversation`]; the replies are kept, one per message sent.
+#[derive(Debug, Clone, Default)]
+pub struct Scripted<'a> {
+    messages: &'a [Vec<u8>],
+    next: usize,
+    /// The reply to each message sent, in order.
+    pub replies: Vec<Vec<u8>>,
+}
+
+impl<'a> Scripted<'a> {
+    pub fn new(messages: &'a [Vec<u8>]) -> Scripted<'a> {
+        Scripted { messages, next: 0, replies: Vec::new() }
+    }
+}
+
+impl Conversation for Scripted<'_> {
+    fn next_message(&mut self) -> Option<Vec<u8>> {
+        let m = self.messages.get(self.next)?.clone();
+        self.next += 1;
+        Some(m)
+    }
+
+    fn observe_reply(&mut self, reply: &[u8]) {
+        self.replies.push(reply.to_vec());
+    }
 }
 
 impl<T: Target + ?Sized> Target for Box<T> {
@@ -111,6 +177,12 @@ impl<T: Target + ?Sized> Target for Box<T> {
     fn describe(&self) -> String {
         (**self).describe()
     }
+    fn replies(&self) -> bool {
+        (**self).replies()
+    }
+    fn converse(&mut self, conversation: &mut dyn Conversation) -> Result<Report, HarnessError> {
+        (**self).converse(conversation)
+    }
 }
 
 impl<T: Target + ?Sized> Target for &mut T {
@@ -119,6 +191,12 @@ impl<T: Target + ?Sized> Target for &mut T {
     }
     fn describe(&self) -> String {
         (**self).describe()
+    }
+    fn replies(&self) -> bool {
+        (**self).replies()
+    }
+    fn converse(&mut self, conversation: &mut dyn Conversation) -> Result<Report, HarnessError> {
+        (**self).converse(conversation)
     }
 }
 
@@ -230,6 +308,23 @@ pub fn resolve_tcp(text: &str, allow_remote: bool) -> Result<SocketAddr, Harness
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    #[test]
+    fn a_target_without_replies_hears_the_whole_conversation_at_once() {
+        let mut seen = Vec::new();
+        let mut target = property::FnTarget::new(|m: &[Vec<u8>]| {
+            seen.push(m.to_vec());
+            Ok(())
+        });
+        assert!(!target.replies());
+        let messages = vec![b"a\n".to_vec(), b"b\n".to_vec()];
+        let mut script = Scripted::new(&messages);
+        let mut boxed: Box<dyn Target + '_> = Box::new(&mut target);
+        assert!(boxed.converse(&mut script).unwrap().failure.is_none());
+        drop(boxed);
+        assert!(script.replies.is_empty(), "no replies were read");
+        assert_eq!(seen, vec![messages]);
+    }
 
     #[test]
     fn refuses_remote_addresses_unless_allowed() {

@@ -13,7 +13,7 @@ use std::time::{Duration, Instant};
 use super::oracle::{Observation, ProcessEnd, ReplyEnd};
 use super::process::{Collector, Proc};
 use super::reply::{read_after_end_of_input, read_reply};
-use super::{CommandLine, HarnessError, Report, Target, TargetSpec};
+use super::{CommandLine, Conversation, HarnessError, Report, Scripted, Target, TargetSpec};
 
 /// How long a crashing server may take to be seen as exited after the connection dropped.
 const EXIT_GRACE: Duration = Duration::from_millis(500);
@@ -120,6 +120,14 @@ fn closes_connection(reply: &[u8]) -> bool {
 
 impl Target for TcpTarget {
     fn run(&mut self, messages: &[Vec<u8>]) -> Result<Report, HarnessError> {
+        self.converse(&mut Scripted::new(messages))
+    }
+
+    fn replies(&self) -> bool {
+        true
+    }
+
+    fn converse(&mut self, conversation: &mut dyn Conversation) -> Result<Report, HarnessError> {
         let start = Instant::now();
         let deadline = start + self.spec.timing.run_timeout;
         self.ensure_server()?;
@@ -136,21 +144,23 @@ impl Target for TcpTarget {
                 let _ = stream.set_nodelay(true);
                 let mut sent: Vec<u8> = Vec::new();
                 let mut answered = 0;
-                for message in messages {
+                loop {
                     let left = deadline.saturating_duration_since(Instant::now());
                     if left.is_zero() {
                         timed_out = true;
                         break;
                     }
+                    let Some(message) = conversation.next_message() else { break };
                     let _ = stream.set_write_timeout(Some(left));
-                    if stream.write_all(message).is_err() {
+                    if stream.write_all(&message).is_err() {
                         o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::Closed });
                         break;
                     }
-                    sent.extend_from_slice(message);
+                    sent.extend_from_slice(&message);
                     let due = spec.framing.replies_due(&sent);
                     if due <= answered {
                         o.replies.push(super::Reply { bytes: Vec::new(), end: ReplyEnd::NotDue });
+                        conversation.observe_reply(&[]);
                         continue;
                     }
                     let owed = due - answered;
@@ -180,6 +190,7 @@ impl Target for TcpTarget {
                         );
                         stop = true;
                     }
+                    conversation.observe_reply(&reply.bytes);
                     o.replies.push(reply);
                     if Instant::now() >= deadline {
                         timed_out = true;

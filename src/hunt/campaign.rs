@@ -6,11 +6,14 @@ use std::time::{Duration, Instant};
 
 use rustc_hash::FxHashMap;
 
+use super::source::RunInput;
 use super::store::{Resume, Store, StoredFinding};
 use super::{Finding, HuntError, HuntOptions, Observer, Progress, StopReason, Summary, TraceSource};
-use crate::harness::{Failure, HarnessError, Report, Target, shell_quote};
+use crate::generate::live::LiveSession;
+use crate::harness::{Conversation, Failure, HarnessError, Report, Scripted, Target, shell_quote};
+use crate::model::Compiled;
 use crate::shrink::shrink;
-use crate::trace::Trace;
+use crate::trace::{Trace, TraceMessage};
 
 /// Traces generated per batch and job: large enough to keep jobs busy, small enough that a stop
 /// or a time budget is honoured quickly.
@@ -63,6 +66,9 @@ pub fn hunt(
         source.skip(index);
     }
     let stopped = || options.stop.as_ref().is_some_and(|s| s.load(Ordering::Relaxed));
+    // A target that answers message by message can hear live sessions (when the source makes
+    // them); any other gets fixed traces.
+    let replies = targets[0].replies();
     let mut runs = resumed_from;
     let mut last_checkpoint = Instant::now();
     let progress = |runs: u64, findings: usize, source: &dyn TraceSource| Progress {
@@ -86,11 +92,15 @@ pub fn hunt(
         if let Some(budget) = options.runs {
             batch = batch.min(budget - runs);
         }
-        let traces: Vec<Trace> = (runs..runs + batch).map(|i| source.trace(i)).collect();
-        let inputs: Vec<Vec<Vec<u8>>> =
-            traces.iter().map(|t| t.messages.iter().map(|m| m.bytes.clone()).collect()).collect();
-        let results = execute(targets, &inputs, options.stop.as_deref());
-        for ((trace, messages), result) in traces.into_iter().zip(&inputs).zip(results) {
+        let planned: Vec<RunInput> = (runs..runs + batch)
+            .map(|i| if replies { source.run_input(i) } else { RunInput::Fixed(source.trace(i)) })
+            .collect();
+        let mut played =
+            planned.into_iter().map(|p| Played::new(p, source.model())).collect::<Result<Vec<_>, _>>()?;
+        let results = execute(targets, &mut played, options.stop.as_deref());
+        let sent: Vec<(Trace, Vec<Vec<u8>>)> = played.into_iter().map(Played::sent).collect();
+        for ((trace, messages), result) in sent.into_iter().zip(results) {
+            let messages = &messages;
             let Some(result) = result else { break };
             let report = match result {
                 Ok(r) => r,
@@ -140,11 +150,71 @@ fn save_checkpoint(store: Option<&Store>, runs: u64, findings: &[Finding]) -> Re
     store.checkpoint(runs, hits.iter().map(|(s, n)| (s.as_str(), *n)))
 }
 
+/// One run's input, ready to play: fixed messages, or a live session over the source's model.
+enum Played<'m> {
+    Fixed { trace: Trace, messages: Vec<Vec<u8>> },
+    Live { session: Box<LiveSession<'m>>, header: Vec<(String, String)> },
+}
+
+impl<'m> Played<'m> {
+    fn new(input: RunInput, model: Option<&'m Compiled>) -> Result<Played<'m>, HuntError> {
+        Ok(match input {
+            RunInput::Fixed(trace) => {
+                let messages = requests(&trace);
+                Played::Fixed { trace, messages }
+            }
+            RunInput::Live { walk, header } => {
+                let model = model.ok_or_else(|| {
+                    HuntError::Options("a live session needs the model of the trace source".into())
+                })?;
+                let session = LiveSession::new(model, walk).map_err(|e| HuntError::Options(e.to_string()))?;
+                Played::Live { session: Box::new(session), header }
+            }
+        })
+    }
+
+    fn play(&mut self, target: &mut dyn Target) -> RunResult {
+        match self {
+            Played::Fixed { messages, .. } => target.run(messages),
+            Played::Live { session, .. } => target.converse(session.as_mut()),
+        }
+    }
+
+    /// The trace as sent (a live session's requests with the replies it heard, marked
+    /// `reply`) and the messages sent: what confirming, shrinking and replay send again.
+    fn sent(self) -> (Trace, Vec<Vec<u8>>) {
+        match self {
+            Played::Fixed { trace, messages } => (trace, messages),
+            Played::Live { session, header } => {
+                let mut trace = session.trace();
+                trace.header = header;
+                let messages = requests(&trace);
+                (trace, messages)
+            }
+        }
+    }
+}
+
+/// The messages of a trace that are sent (not those marked `reply`).
+fn requests(trace: &Trace) -> Vec<Vec<u8>> {
+    trace.messages.iter().filter(|m| !m.is_reply()).map(|m| m.bytes.clone()).collect()
+}
+
+impl Conversation for LiveSession<'_> {
+    fn next_message(&mut self) -> Option<Vec<u8>> {
+        LiveSession::next_message(self)
+    }
+
+    fn observe_reply(&mut self, reply: &[u8]) {
+        LiveSession::observe_reply(self, reply)
+    }
+}
+
 /// Runs each input on the targets, in parallel when there are several. `None` marks inputs not
 /// run because a stop was requested.
 fn execute(
     targets: &mut [Box<dyn Target + Send>],
-    inputs: &[Vec<Vec<u8>>],
+    inputs: &mut [Played<'_>],
     stop: Option<&AtomicBool>,
 ) -> Vec<Option<RunResult>> {
     let stopped = || stop.is_some_and(|s| s.load(Ordering::Relaxed));
@@ -155,13 +225,15 @@ fn execute(
             if stopped() {
                 out.push(None);
             } else {
-                out.push(Some(target.run(input)));
+                out.push(Some(input.play(target)));
             }
         }
         return out;
     }
     let next = AtomicUsize::new(0);
-    let slots: Vec<Mutex<Option<RunResult>>> = inputs.iter().map(|_| Mutex::new(None)).collect();
+    let count = inputs.len();
+    let slots: Vec<Mutex<(&mut Played<'_>, Option<RunResult>)>> =
+        inputs.iter_mut().map(|p| Mutex::new((p, None))).collect();
     std::thread::scope(|scope| {
         for target in targets.iter_mut() {
             let (next, slots) = (&next, &slots);
@@ -171,14 +243,17 @@ fn execute(
                         break;
                     }
                     let i = next.fetch_add(1, Ordering::Relaxed);
-                    let Some(input) = inputs.get(i) else { break };
-                    let result = target.run(input);
-                    *slots[i].lock().unwrap_or_else(|e| e.into_inner()) = Some(result);
+                    if i >= count {
+                        break;
+                    }
+                    let mut slot = slots[i].lock().unwrap_or_else(|e| e.into_inner());
+                    let result = slot.0.play(target);
+                    slot.1 = Some(result);
                 }
             });
         }
     });
-    slots.into_iter().map(|s| s.into_inner().unwrap_or_else(|e| e.into_inner())).collect()
+    slots.into_iter().map(|s| s.into_inner().unwrap_or_else(|e| e.into_inner()).1).collect()
 }
 
 fn same_failure(target: &mut dyn Target, messages: &[Vec<u8>], signature: &str) -> bool {
@@ -225,18 +300,29 @@ fn new_finding(
     let mut shrink_runs = 0;
     let mut shrunk_report = None;
     if let (false, Some(shrink_options)) = (flaky, &options.shrink) {
+        // Shrinking works on the bytes sent, live sessions included: the shrinker's candidates
+        // are fixed messages, so a copied value stays what the first run's target issued. A
+        // target that issues the same values for the same session (ids from a fixed seed, a
+        // counter) keeps failing on them; when dropping a message would change the values it
+        // issues later, the copies go stale, the candidate passes, and the message is kept.
         let shrunk = shrink(messages, model, shrink_options, |candidate| {
             fails_repeatably(target.as_mut(), candidate, &signature, options.confirm)
         });
         shrink_runs = shrunk.calls;
-        let mut trace = shrunk.to_trace(&original, model);
+        let mut trace = shrunk.to_trace(&sent_requests(&original), model);
         trace.set("shrunk-from", format!("{} messages", messages.len()));
         trace.set("shrink-runs", shrunk.calls.to_string());
         if !shrunk.complete {
             trace.set("shrink-cut", "stopped before the trace was 1-minimal");
         }
-        // One more run records the shrunk trace's output and checks that it still fails.
-        let check = target.run(&shrunk.bytes()).ok();
+        // One more run records the shrunk trace's output (and, for a live session, the replies
+        // to show in it) and checks that it still fails.
+        let bytes = shrunk.bytes();
+        let mut script = Scripted::new(&bytes);
+        let check = target.converse(&mut script).ok();
+        if original.messages.iter().any(|m| m.is_reply()) {
+            trace = with_replies(trace, &script.replies);
+        }
         if check.as_ref().and_then(|r| r.failure.as_ref()).is_none_or(|f| f.signature() != signature) {
             trace.set("replay-check", "did not fail again when rerun");
         }
@@ -284,10 +370,39 @@ fn new_finding(
             first_run: run,
             flaky,
             original_messages: messages.len(),
-            shrunk_messages: finding.shrunk.as_ref().map(|t| t.messages.len()),
+            shrunk_messages: finding.shrunk.as_ref().map(|t| t.wire_messages()),
             shrink_runs,
         })?;
         finding.dir = Some(store.finding_dir(&signature));
     }
     Ok(finding)
+}
+
+/// The messages of `trace` that were sent, without value-flow marks: after shrinking, the
+/// message numbers they name are gone, and the values are fixed bytes anyway.
+fn sent_requests(trace: &Trace) -> Trace {
+    let messages = trace
+        .messages
+        .iter()
+        .filter(|m| !m.is_reply())
+        .map(|m| {
+            let mut m = m.clone();
+            m.marks.retain(|k| !k.starts_with("flow:") && !k.starts_with("flow-broken:"));
+            m
+        })
+        .collect();
+    Trace { header: trace.header.clone(), messages }
+}
+
+/// `trace` with the reply to each message (where there was one) after it, marked `reply`.
+fn with_replies(mut trace: Trace, replies: &[Vec<u8>]) -> Trace {
+    let mut messages = Vec::with_capacity(trace.messages.len() * 2);
+    for (i, m) in trace.messages.into_iter().enumerate() {
+        messages.push(m);
+        if let Some(r) = replies.get(i).filter(|r| !r.is_empty()) {
+            messages.push(TraceMessage { bytes: r.clone(), surprise: None, marks: vec!["reply".into()] });
+        }
+    }
+    trace.messages = messages;
+    trace
 }

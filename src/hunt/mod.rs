@@ -9,6 +9,15 @@
 //! the trace (a failure that does not repeat is reported as flaky and not shrunk, so shrinking
 //! never chases noise), shrunk with [`crate::shrink`], and stored by [`store::Store`].
 //!
+//! Against a target that replies message by message ([`Target::replies`]), a source may
+//! make its runs *live* ([`RunInput::Live`]): the generated walk is played as a
+//! [`crate::generate::live::LiveSession`] through [`Target::converse`], so the values its slots
+//! copy are the ids the target actually issued earlier in the session. What was sent is stored
+//! (the replies heard marked `reply`), and confirming, shrinking and replay send those bytes
+//! again as fixed messages: values are not re-derived, so a finding reproduces on a target that
+//! issues the same values for the same session, and a shrink candidate that would change the
+//! values issued later fails to reproduce and is not taken.
+//!
 //! A stop request (Ctrl-C) ends the campaign after the runs in flight; a shrink in progress
 //! returns the smallest failing trace so far; every finding is kept and the checkpoint lets a
 //! rerun on the same directory resume where this one stopped.
@@ -30,7 +39,7 @@ use crate::shrink::{ShrinkOptions, Shrunk, shrink};
 use crate::trace::Trace;
 
 pub use campaign::hunt;
-pub use source::{ModelSource, TraceSource};
+pub use source::{ModelSource, RunInput, TraceSource};
 pub use store::{Resume, Store};
 
 /// Errors of a campaign.

@@ -2,10 +2,21 @@
 
 use rustc_hash::FxHashSet;
 
-use crate::generate::Generator;
 use crate::generate::transitions::Transitions;
+use crate::generate::{Generator, Walk};
 use crate::model::Compiled;
 use crate::trace::Trace;
+
+/// What one run of a campaign sends.
+#[derive(Debug, Clone)]
+pub enum RunInput {
+    /// A trace whose messages are sent as they are (those marked `reply` are not sent).
+    Fixed(Trace),
+    /// A generated walk played as a [`crate::generate::live::LiveSession`] with the source's
+    /// model against a target that replies: each copied slot takes the value the target
+    /// returned earlier in the session. `header` is the stored trace's header.
+    Live { walk: Walk, header: Vec<(String, String)> },
+}
 
 /// A deterministic stream of traces for a campaign.
 ///
@@ -15,6 +26,13 @@ use crate::trace::Trace;
 pub trait TraceSource {
     /// Trace `index`.
     fn trace(&mut self, index: u64) -> Trace;
+
+    /// Run `index` for a target that replies message by message (`Target::replies`); called
+    /// instead of `trace` then, under the same contract. The default sends [`Self::trace`]
+    /// as it is.
+    fn run_input(&mut self, index: u64) -> RunInput {
+        RunInput::Fixed(self.trace(index))
+    }
 
     /// Advances past trace `index` without needing it.
     fn skip(&mut self, index: u64) {
@@ -44,12 +62,22 @@ pub struct ModelSource<'m> {
     /// The learned session transitions (see [`Transitions`]); coverage counts edges taken.
     transitions: Transitions,
     covered: FxHashSet<usize>,
+    live: bool,
 }
 
 impl<'m> ModelSource<'m> {
     pub fn new(generator: Generator<'m>, seed: u64) -> ModelSource<'m> {
         let transitions = Transitions::of(&generator.model().session);
-        ModelSource { generator, seed, transitions, covered: FxHashSet::default() }
+        ModelSource { generator, seed, transitions, covered: FxHashSet::default(), live: false }
+    }
+
+    /// With `true`, runs for a target that replies are live sessions
+    /// ([`RunInput::Live`]): the generated walks are the same, but their copied values come
+    /// from the target's replies instead of the model's expected replies. Worth it only with
+    /// value flow on and a model that learned replies. Part of the campaign's identity.
+    pub fn with_live_replies(mut self, live: bool) -> ModelSource<'m> {
+        self.live = live;
+        self
     }
 
     fn walk(&mut self, index: u64) -> crate::generate::Walk {
@@ -63,12 +91,17 @@ impl TraceSource for ModelSource<'_> {
     fn trace(&mut self, index: u64) -> Trace {
         let walk = self.walk(index);
         let mut trace = walk.to_trace(self.generator.model());
-        trace.header = self.identity();
-        trace.set("index", index.to_string());
-        if !walk.ended {
-            trace.set("cut", format!("at {} messages", self.generator.options().max_messages));
-        }
+        trace.header = self.header(&walk, index);
         trace
+    }
+
+    fn run_input(&mut self, index: u64) -> RunInput {
+        if !self.live {
+            return RunInput::Fixed(self.trace(index));
+        }
+        let walk = self.walk(index);
+        let header = self.header(&walk, index);
+        RunInput::Live { walk, header }
     }
 
     fn skip(&mut self, index: u64) {
@@ -96,6 +129,11 @@ impl TraceSource for ModelSource<'_> {
             id.push(("hostile".into(), hostile));
         }
         id.push(("max-messages".into(), options.max_messages.to_string()));
+        if !options.flow {
+            id.push(("flow".into(), "off".into()));
+        } else if self.live {
+            id.push(("flow".into(), "live".into()));
+        }
         id
     }
 
@@ -105,5 +143,16 @@ impl TraceSource for ModelSource<'_> {
 
     fn model(&self) -> Option<&Compiled> {
         Some(self.generator.model())
+    }
+}
+
+impl ModelSource<'_> {
+    fn header(&self, walk: &Walk, index: u64) -> Vec<(String, String)> {
+        let mut trace = Trace { header: self.identity(), messages: Vec::new() };
+        trace.set("index", index.to_string());
+        if !walk.ended {
+            trace.set("cut", format!("at {} messages", self.generator.options().max_messages));
+        }
+        trace.header
     }
 }

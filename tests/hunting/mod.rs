@@ -118,3 +118,15 @@ pub fn findings(summary: &serde_json::Value) -> Vec<(String, u64, Option<u64>)> 
         })
         .collect()
 }
+
+/// The ticket desk demo target (stdin, or loopback TCP with `--port`).
+pub fn ticket_desk() -> &'static Path {
+    static BIN: OnceLock<PathBuf> = OnceLock::new();
+    BIN.get_or_init(|| built("ticket_desk"))
+}
+
+/// A model of the ticket-desk corpus.
+pub fn desk_model() -> &'static Path {
+    static MODEL: OnceLock<PathBuf> = OnceLock::new();
+    MODEL.get_or_init(|| learned("ticket-desk"))
+}
