@@ -10,9 +10,11 @@ use super::process::{Bounded, Collector, Proc};
 use super::reply::{ChunkSource, read_after_end_of_input, read_reply};
 use super::{CommandLine, Conversation, HarnessError, Report, Scripted, Target, TargetSpec};
 
-/// How long output may keep arriving after a process ended (descendants are killed with it, so
-/// this only matters for one that escaped its group).
-const DRAIN_GRACE: Duration = Duration::from_millis(200);
+/// How long output may keep arriving after a process ended. Descendants are killed with it, so
+/// the pipes normally reach their end at once and this is no wait at all; it bounds the wait for
+/// one that escaped its group, and leaves a loaded machine time to schedule the reader threads
+/// (a panic message read too late would change the failure's signature).
+const DRAIN_GRACE: Duration = Duration::from_secs(1);
 
 /// Inputs up to this size are written to stdin directly: a pipe holds at least one page.
 const SMALL_INPUT: usize = 4096;
