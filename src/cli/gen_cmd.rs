@@ -4,7 +4,9 @@ use std::io::Write;
 use std::path::PathBuf;
 
 use tracewalk::generate::report::ReportBuilder;
-use tracewalk::generate::{GenOptions, Generator, HostileLibrary, Mode};
+use tracewalk::generate::{GenOptions, Generator, Mode};
+
+use super::walk_args::WalkArgs;
 
 #[derive(Debug, clap::Args)]
 pub struct Args {
@@ -16,27 +18,8 @@ pub struct Args {
     /// Seed; the same model, seed and options give byte-identical output.
     #[arg(long, default_value_t = 0)]
     seed: u64,
-    /// What to generate: plausible, rare, novel, frontier or tour.
-    #[arg(long, default_value = "plausible")]
-    mode: Mode,
-    /// Next-step weights become p^(1/T): below 1 sharpens, above 1 flattens.
-    #[arg(long, default_value_t = 1.0)]
-    temperature: f64,
-    /// Rare mode: probability per session step of a forced step into the tail.
-    #[arg(long, default_value_t = 0.05, value_name = "R")]
-    rare_rate: f64,
-    /// Rare mode: at least this many forced steps per trace (0: the plain per-step process).
-    #[arg(long, default_value_t = 1, value_name = "N")]
-    rare_min: u32,
-    /// Rare mode: probability per slot of a hostile value (default: the rare rate).
-    #[arg(long, value_name = "R")]
-    hostile_rate: Option<f64>,
-    /// Rare mode: a YAML file of hostile values added to the built-in ones (`tracewalk rules --hostile`).
-    #[arg(long, value_name = "FILE")]
-    hostile: Option<PathBuf>,
-    /// Rare mode: no hostile values, only forced steps.
-    #[arg(long, conflicts_with = "hostile")]
-    no_hostile: bool,
+    #[command(flatten)]
+    walk: WalkArgs,
     /// Visit this template (its text as `show` prints it, a message, or text that template texts
     /// contain); repeat for several, in order. Sessions are drawn from the chain conditioned on it.
     #[arg(long, value_name = "TEMPLATE")]
@@ -44,20 +27,10 @@ pub struct Args {
     /// With --through: print the single most probable such session.
     #[arg(long)]
     best: bool,
-    /// Fill every slot from its pool independently instead of reproducing the learned value flow
-    /// (which slots reuse values that earlier messages or replies issued).
-    #[arg(long)]
-    no_flow: bool,
     /// Show the replies the model expects after each request, marked `reply` (never sent; with
     /// --raw they are written too, as a two-sided capture).
     #[arg(long)]
     replies: bool,
-    /// Rare mode: probability per copied slot of breaking the coupling (default: the rare rate).
-    #[arg(long, value_name = "R")]
-    flow_break_rate: Option<f64>,
-    /// Longest trace in messages (also the length bound for --through and tour sessions).
-    #[arg(long, default_value_t = 200)]
-    max_messages: usize,
     /// Print a report on the batch to standard error: well-formed fraction, new templates,
     /// transitions covered, surprise.
     #[arg(long)]
@@ -72,36 +45,14 @@ pub struct Args {
 
 pub fn run(a: Args) -> anyhow::Result<i32> {
     let model = super::load_compiled(&a.model)?;
-    let hostile = if a.no_hostile {
-        None
-    } else if let Some(path) = &a.hostile {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| anyhow::anyhow!("{}: cannot read: {e}", path.display()))?;
-        Some(std::sync::Arc::new(HostileLibrary::from_yaml(&text, &path.display().to_string())?))
-    } else {
-        Some(HostileLibrary::builtin())
-    };
-    let options = GenOptions {
-        mode: a.mode,
-        temperature: a.temperature,
-        max_messages: a.max_messages,
-        rare_rate: a.rare_rate,
-        rare_min: a.rare_min,
-        hostile_rate: a.hostile_rate,
-        hostile,
-        through: a.through.clone(),
-        best: a.best,
-        flow: !a.no_flow,
-        replies: a.replies,
-        flow_break_rate: a.flow_break_rate,
-        ..GenOptions::default()
-    };
+    let options =
+        GenOptions { through: a.through.clone(), best: a.best, replies: a.replies, ..a.walk.options()? };
     let mut generator = Generator::new(&model, options)?;
     if let Some(dir) = &a.output {
         std::fs::create_dir_all(dir).map_err(|e| anyhow::anyhow!("{}: cannot create: {e}", dir.display()))?;
     }
     let count = generator.batch_size(a.count);
-    let measure = a.report || matches!(a.mode, Mode::Novel | Mode::Frontier | Mode::Tour);
+    let measure = a.report || matches!(a.walk.mode, Mode::Novel | Mode::Frontier | Mode::Tour);
     let mut report = measure.then(|| ReportBuilder::new(&model));
     let stdout = std::io::stdout();
     let mut out = std::io::BufWriter::new(stdout.lock());
@@ -143,7 +94,7 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
             if a.best { "probability of this session" } else { "probability that a session visits them" };
         eprintln!(
             "waypoints: {what} within {} messages: {:.3e} ({} chain contexts)",
-            a.max_messages,
+            a.walk.max_messages,
             plan.probability(),
             plan.space().len()
         );
@@ -153,14 +104,14 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
             tour.optimal_steps.map_or("none (some transition cannot end)".to_string(), |s| s.to_string());
         eprintln!(
             "tour: fewest steps any covering set of sessions needs: {optimum}; uncovered within {} messages: {}",
-            a.max_messages, tour.uncovered
+            a.walk.max_messages, tour.uncovered
         );
     }
     let Some(r) = report.map(ReportBuilder::finish) else { return Ok(0) };
     if a.report {
         eprintln!("{r}");
     } else {
-        match a.mode {
+        match a.walk.mode {
             Mode::Novel => eprintln!(
                 "novel: {} of {} messages have new templates ({:.2}%)",
                 r.new_templates,

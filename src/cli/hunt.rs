@@ -4,13 +4,14 @@ use std::io::IsTerminal;
 use std::path::PathBuf;
 use std::time::Duration;
 
-use tracewalk::generate::{GenOptions, Generator, HostileLibrary, Mode};
+use tracewalk::generate::Generator;
 use tracewalk::harness::oracle::describe;
 use tracewalk::harness::{Failure, Target, interrupt_flag};
 use tracewalk::hunt::{self, Finding, HuntOptions, ModelSource, Observer, Progress, Store, Summary};
 use tracewalk::shrink::ShrinkOptions;
 
 use super::target::TargetArgs;
+use super::walk_args::WalkArgs;
 
 #[derive(Debug, clap::Args)]
 pub struct Args {
@@ -18,35 +19,8 @@ pub struct Args {
     model: PathBuf,
     #[command(flatten)]
     target: TargetArgs,
-    /// What to generate: plausible, rare, novel, frontier or tour (as `tracewalk gen`).
-    #[arg(long, default_value = "plausible")]
-    mode: Mode,
-    /// Next-step weights become p^(1/T): below 1 sharpens, above 1 flattens.
-    #[arg(long, default_value_t = 1.0)]
-    temperature: f64,
-    /// Rare mode: probability per session step of a forced step into the tail.
-    #[arg(long, default_value_t = 0.05, value_name = "R")]
-    rare_rate: f64,
-    /// Rare mode: at least this many forced steps per trace (0: the plain per-step process).
-    #[arg(long, default_value_t = 1, value_name = "N")]
-    rare_min: u32,
-    /// Rare mode: probability per slot of a hostile value (default: the rare rate).
-    #[arg(long, value_name = "R")]
-    hostile_rate: Option<f64>,
-    /// Rare mode: a YAML file of hostile values added to the built-in ones.
-    #[arg(long, value_name = "FILE")]
-    hostile: Option<PathBuf>,
-    /// Rare mode: no hostile values, only forced steps.
-    #[arg(long, conflicts_with = "hostile")]
-    no_hostile: bool,
-    /// Fill every slot from its pool independently instead of reproducing the learned value
-    /// flow. With flow on (the default) and a target that replies message by message
-    /// (--per-message, --tcp), each session's copied values are the ones the target returned.
-    #[arg(long)]
-    no_flow: bool,
-    /// Longest trace in messages.
-    #[arg(long, default_value_t = 200)]
-    max_messages: usize,
+    #[command(flatten)]
+    walk: WalkArgs,
     /// Stop after this many runs in all (runs of earlier sessions on the directory count).
     #[arg(long, value_name = "RUNS", required_unless_present = "time")]
     budget: Option<u64>,
@@ -130,28 +104,9 @@ pub fn run(a: Args) -> anyhow::Result<i32> {
     let spec = a.target.spec(format)?;
     let mut targets: Vec<Box<dyn Target + Send>> =
         (0..a.jobs).map(|job| spec.build(job)).collect::<Result<_, _>>()?;
-    let hostile = if a.no_hostile {
-        None
-    } else if let Some(path) = &a.hostile {
-        let text = std::fs::read_to_string(path)
-            .map_err(|e| anyhow::anyhow!("{}: cannot read: {e}", path.display()))?;
-        Some(std::sync::Arc::new(HostileLibrary::from_yaml(&text, &path.display().to_string())?))
-    } else {
-        Some(HostileLibrary::builtin())
-    };
-    let options = GenOptions {
-        mode: a.mode,
-        temperature: a.temperature,
-        max_messages: a.max_messages,
-        rare_rate: a.rare_rate,
-        rare_min: a.rare_min,
-        hostile_rate: a.hostile_rate,
-        hostile,
-        flow: !a.no_flow,
-        ..GenOptions::default()
-    };
+    let options = a.walk.options()?;
     let generator = Generator::new(&compiled, options)?;
-    let live = !a.no_flow && !compiled.flow.is_empty() && targets[0].replies();
+    let live = !a.walk.no_flow && !compiled.flow.is_empty() && targets[0].replies();
     let mut source = ModelSource::new(generator, a.seed).with_live_replies(live);
     let identity = tracewalk::hunt::TraceSource::identity(&source);
     let (store, resume) = Store::open(&a.output, &identity, &targets[0].describe())?;

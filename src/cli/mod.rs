@@ -9,6 +9,7 @@ mod score;
 mod seed;
 mod show;
 mod target;
+mod walk_args;
 
 use std::path::PathBuf;
 
