@@ -6,7 +6,9 @@
 #   b  engine seeded with the training sessions         (DEMO_stream), replies removed
 #   c  engine seeded with a `tracewalk seed` corpus     (DEMO_stream), same number of files
 #   d  as c, plus the model-driven custom mutator       (DEMO_modeled)
-#   e  structured decoding, empty corpus                (DEMO_structured)
+#   e  structured decoding, empty corpus                (DEMO_structured); its `cov:` also
+#      counts the edges of tracewalk's decoder, which runs inside the target: compare its
+#      executions to the first crash, not its coverage
 # Two figures per arm, ENGINE_SEEDS seeds each, medians:
 #   cov      the engine's final `cov:` after RUNS executions; planted-bug panics count as
 #            ordinary runs here (TRACEWALK_FUZZ_SURVIVE_PANICS), so every run has RUNS executions
@@ -94,7 +96,7 @@ run() { # binary, corpus source (or empty), seed, executions -> engine output on
         -artifact_prefix="$dir/" 2>&1 || true
     rm -rf "$dir"
 }
-median() { sort -n | awk '{a[NR]=$1} END {print (NR%2) ? a[(NR+1)/2] : (a[NR/2]+a[NR/2+1])/2}'; }
+median() { sort -n | awk '{a[NR]=$1} END {printf "%.0f\n", (NR%2) ? a[(NR+1)/2] : (a[NR/2]+a[NR/2+1])/2}'; }
 
 echo "$demo in-process, $runs executions per coverage run, crash runs capped at $crash_runs,"
 echo "$seeds engine seeds, $files corpus files in arms b-d"
@@ -123,10 +125,10 @@ for a in a b c d e; do
     done
     med[$a]=$(printf '%s\n' "${covs[@]}" | median)
     crashmed[$a]=$(printf '%s\n' "${execs[@]}" | median)
-    [ "${crashmed[$a]%.*}" -ge 999999999999 ] && crashmed[$a]=">$crash_runs"
+    [ "${crashmed[$a]}" -ge 999999999999 ] && crashmed[$a]=">$crash_runs"
     printf '%-40s %6s  %-26s %9s  %s\n' "$name" "${med[$a]}" "${covs[*]}" "${crashmed[$a]}" "${shown[*]}"
 done
 awk -v a="${med[a]}" -v b="${med[b]}" -v c="${med[c]}" -v d="${med[d]}" -v e="${med[e]}" 'BEGIN {
-    printf "coverage ratios: c/b %.2f  d/b %.2f  c/a %.2f  d/a %.2f  e/b %.2f  e/a %.2f   (goal: c, d >= 1.2x b and >= 2x a)\n",
-        c/b, d/b, c/a, d/a, e/b, e/a }'
+    printf "coverage ratios: c/b %.2f  d/b %.2f  c/a %.2f  d/a %.2f   (goal: c, d >= 1.2x b and >= 2x a)\n",
+        c/b, d/b, c/a, d/a }'
 echo "load average: $(cut -d' ' -f1-3 /proc/loadavg)"
