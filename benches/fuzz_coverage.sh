@@ -17,7 +17,8 @@ trap 'rm -rf "$work"' EXIT
 cargo build --release --quiet
 fuzz/build-targets --quiet >/dev/null
 host="$(rustc -vV | sed -n 's/^host: //p')"
-bin="fuzz/target/$host/release"
+bin="${CARGO_TARGET_DIR:-fuzz/target}/$host/release"
+tw="${CARGO_TARGET_DIR:-target}/release/tracewalk"
 
 # b: the training requests, one file per session (responses removed: the harness parses requests).
 mkdir -p "$work/training"
@@ -54,11 +55,11 @@ PY
 files=$(ls "$work/training" | wc -l)
 
 # c, d: a generated seed corpus with the same number of files, from the model the targets embed.
-./target/release/tracewalk learn corpora/shop-api --order 2,3 -o "$work/shop.model" -q
+"$tw" learn corpora/shop-api --order 2,3 -o "$work/shop.model" -q
 n=$files
 while :; do
     rm -rf "$work/seeds"
-    ./target/release/tracewalk seed "$work/shop.model" -n "$n" -o "$work/seeds" --mode "${SEED_MODE:-plausible}" 2>/dev/null
+    "$tw" seed "$work/shop.model" -n "$n" -o "$work/seeds" --mode "${SEED_MODE:-plausible}" 2>/dev/null
     have=$(ls "$work/seeds" | wc -l)
     [ "$have" -ge "$files" ] && break
     n=$((n + files - have))

@@ -225,11 +225,10 @@ impl Hub {
     }
 }
 
-fn main() {
-    let stdin = io::stdin();
-    let mut input = stdin.lock();
-    let stdout = io::stdout();
-    let mut out = stdout.lock();
+/// Serves one client session: command lines from `input`, replies to `output`, until the input
+/// ends or the client says BYE. `main` runs it over stdin and stdout; the fuzz targets
+/// `lamp_hub_*` include this file and run it in-process.
+pub fn serve(mut input: impl BufRead, mut out: impl Write) {
     let mut hub = Hub::new();
     let mut raw = Vec::new();
     loop {
@@ -245,4 +244,8 @@ fn main() {
             return;
         }
     }
+}
+
+fn main() {
+    serve(io::stdin().lock(), io::stdout().lock());
 }

@@ -258,7 +258,7 @@ impl Connection {
 }
 
 /// Reads one request; `Ok(None)` at a clean end of the connection, `Err` for a malformed one.
-fn read_request(reader: &mut BufReader<TcpStream>) -> Result<Option<Request>, &'static str> {
+fn read_request(reader: &mut impl BufRead) -> Result<Option<Request>, &'static str> {
     let mut head = Vec::new();
     loop {
         let mut line = Vec::new();
@@ -336,7 +336,7 @@ fn read_request(reader: &mut BufReader<TcpStream>) -> Result<Option<Request>, &'
     Ok(Some(request))
 }
 
-fn write_response(stream: &mut TcpStream, status: u16, body: &str, close: bool) -> std::io::Result<()> {
+fn write_response(stream: &mut impl Write, status: u16, body: &str, close: bool) -> std::io::Result<()> {
     let reason = match status {
         200 => "OK",
         201 => "Created",
@@ -356,8 +356,14 @@ fn write_response(stream: &mut TcpStream, status: u16, body: &str, close: bool) 
 
 fn serve(stream: TcpStream) {
     let _ = stream.set_read_timeout(Some(Duration::from_secs(10)));
-    let Ok(mut writer) = stream.try_clone() else { return };
-    let mut reader = BufReader::new(stream);
+    let Ok(writer) = stream.try_clone() else { return };
+    serve_connection(BufReader::new(stream), writer);
+}
+
+/// Serves one connection: requests from `reader`, responses to `writer`, until the reader ends,
+/// a request asks to close, or one is malformed. The fuzz targets `shop_server_*` include this
+/// file and run it in-process.
+pub fn serve_connection(mut reader: impl BufRead, mut writer: impl Write) {
     let mut connection = Connection::default();
     loop {
         match read_request(&mut reader) {

@@ -6,8 +6,8 @@
 
 use std::sync::OnceLock;
 
-use libfuzzer_sys::{fuzz_mutator, fuzz_target, fuzzer_mutate};
-use tracewalk::feed::{InputMutator, Mutated};
+use libfuzzer_sys::{fuzz_mutator, fuzz_target};
+use tracewalk::feed::InputMutator;
 
 fn mutator() -> &'static InputMutator<'static> {
     static M: OnceLock<InputMutator<'static>> = OnceLock::new();
@@ -19,12 +19,5 @@ fuzz_target!(|data: &[u8]| {
 });
 
 fuzz_mutator!(|data: &mut [u8], size: usize, max_size: usize, seed: u32| {
-    // One input in four gets a byte-level mutation anyway, so the engine keeps exploring
-    // around the learned paths as well as along them.
-    if seed % 4 != 0
-        && let Mutated::Modeled(n) = mutator().mutate(data, size, max_size, seed)
-    {
-        return n;
-    }
-    fuzzer_mutate(data, size, max_size)
+    tracewalk_fuzz::mutate(mutator(), data, size, max_size, seed)
 });

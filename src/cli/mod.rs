@@ -1,5 +1,6 @@
 //! Command-line interface.
 
+mod decode;
 mod gen_cmd;
 mod hunt;
 mod learn;
@@ -44,6 +45,9 @@ enum Command {
     /// Write generated traces as a seed corpus for a coverage-guided engine (raw bytes, one
     /// file per trace, named by content hash).
     Seed(seed::Args),
+    /// Turn an input of a structured fuzz target (e.g. a crash file) into the session it ran:
+    /// a trace, or raw bytes.
+    Decode(decode::Args),
     /// Add models learned on separate shards of data.
     Merge(MergeArgs),
     /// Print the built-in slot rules (a starting point for a rules file of your own).
@@ -94,6 +98,7 @@ pub fn run() -> i32 {
         Command::Replay(a) => replay::replay(a),
         Command::Shrink(a) => replay::shrink(a),
         Command::Seed(a) => seed::run(a),
+        Command::Decode(a) => decode::run(a),
         Command::Merge(a) => merge(a),
         Command::Rules(a) if a.hostile => {
             print!("{}", tracewalk::generate::hostile::BUILTIN_HOSTILE_YAML);

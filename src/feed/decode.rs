@@ -15,6 +15,7 @@ use crate::generate::{Step, Walk};
 use crate::model::Compiled;
 use crate::symbol::{END, NOVEL};
 use crate::token::render::Skew;
+use crate::trace::Trace;
 
 /// Bounds of a decoded walk.
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
@@ -147,4 +148,17 @@ pub fn decode(model: &Compiled, u: &mut Unstructured<'_>, options: &DecodeOption
         });
     }
     walk
+}
+
+/// The wire bytes of the walk `data` decodes to: exactly what a structured fuzz target hands its
+/// harness, so a crash file of such a target can be turned back into the session it ran.
+pub fn decode_bytes(model: &Compiled, data: &[u8], options: &DecodeOptions) -> Vec<u8> {
+    let walk = decode(model, &mut Unstructured::new(data), options);
+    walk.steps.iter().flat_map(|s| s.render(model)).collect()
+}
+
+/// The walk `data` decodes to as a readable trace (no header, requests only); its wire bytes are
+/// [`decode_bytes`].
+pub fn decode_trace(model: &Compiled, data: &[u8], options: &DecodeOptions) -> Trace {
+    decode(model, &mut Unstructured::new(data), options).to_trace(model)
 }

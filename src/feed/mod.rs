@@ -17,7 +17,7 @@ use std::path::Path;
 
 use crate::generate::Generator;
 
-pub use decode::{DecodeOptions, decode};
+pub use decode::{DecodeOptions, decode, decode_bytes, decode_trace};
 pub use mutator::{InputMutator, Mutated, byte_mutate};
 
 /// Writes `count` generated traces (raw wire bytes) into `dir`, one file per distinct trace,
