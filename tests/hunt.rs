@@ -120,12 +120,16 @@ fn shrunk_traces_are_one_minimal_by_brute_force() {
             i + 1
         );
     }
-    // Raw traffic (a captured session with the hub's replies in it) is read as the model reads.
+    // Raw traffic (a captured session with the hub's replies in it) is read as the model reads,
+    // NUL bytes included (as in an engine's crash file; a corpus would skip the file as binary).
     let raw = dir.join("captured.txt");
     let mut captured = Vec::new();
-    for m in &messages(&long) {
+    for (i, m) in messages(&long).iter().enumerate() {
         captured.extend_from_slice(m);
         captured.extend_from_slice(b"OK seen\n");
+        if i == 1 {
+            captured.extend_from_slice(b"PING \0\x01\n");
+        }
     }
     std::fs::write(&raw, &captured).unwrap();
     let from_raw = dir.join("from-raw.trace");

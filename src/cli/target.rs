@@ -259,7 +259,7 @@ pub fn load_input(
     }
     let what = path.display().to_string();
     let source = read::Source { path: path.to_path_buf(), bytes };
-    let corpus = read::read(vec![source], &options, &what)?;
+    let corpus = read::Reader::new(&options)?.keeping_binary().read(vec![source], &what)?;
     anyhow::ensure!(
         corpus.sessions.len() == 1,
         "{what}: holds {} sessions; give one session per file",

@@ -248,6 +248,7 @@ pub struct Reader {
     options: ReadOptions,
     session_key: Option<regex::bytes::Regex>,
     reply: Option<regex::bytes::Regex>,
+    keep_binary: bool,
 }
 
 fn compile_regex(what: &str, pattern: &str) -> Result<regex::bytes::Regex, ReadError> {
@@ -276,7 +277,14 @@ impl Reader {
         };
         let reply =
             options.reply_pattern.as_deref().map(|p| compile_regex("--reply-pattern", p)).transpose()?;
-        Ok(Reader { options: options.clone(), session_key, reply })
+        Ok(Reader { options: options.clone(), session_key, reply, keep_binary: false })
+    }
+
+    /// A reader that reads files with NUL bytes too, for a file a user names as one session
+    /// (`shrink`, `replay`: a crash file may hold any byte). Corpora skip such files as binary.
+    pub fn keeping_binary(mut self) -> Reader {
+        self.keep_binary = true;
+        self
     }
 
     pub fn options(&self) -> &ReadOptions {
@@ -293,7 +301,7 @@ impl Reader {
                 skips.add("empty files", 1);
                 continue;
             }
-            if format != Format::Http && looks_binary(&source.bytes) {
+            if format != Format::Http && !self.keep_binary && looks_binary(&source.bytes) {
                 // Common practice (as text tools do): a NUL byte near the start marks a binary file.
                 skips.add("binary files", 1);
                 continue;
