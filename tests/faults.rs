@@ -373,7 +373,7 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
             "--seed",
             "7",
             "--budget",
-            "1200",
+            "2000",
             "-o",
             dir.to_str().unwrap(),
             "--json",
@@ -399,9 +399,10 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
     let dir = scratch("faults-kill");
     let mut rng = Xoshiro256PlusPlus::seed_from_u64(20);
     let mut checkpoint = 0;
+    let mut checkpoints = Vec::new();
     let mut killed_with_temp_files = 0;
     for _ in 0..4 {
-        let delay = Duration::from_millis(rng.random_range(150..1200));
+        let delay = Duration::from_millis(rng.random_range(300..2500));
         let mut child = Command::new(env!("CARGO_BIN_EXE_tracewalk"))
             .args(args(&dir, "2"))
             .stdout(Stdio::null())
@@ -414,19 +415,247 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
         let runs = check_campaign_dir(&dir);
         assert!(runs >= checkpoint, "the checkpoint went back from {checkpoint} to {runs}");
         checkpoint = runs;
+        checkpoints.push((delay.as_millis(), runs));
         killed_with_temp_files += usize::from(!temp_files(&dir).is_empty());
+    }
+    // What a kill in the middle of a write leaves, planted so that the clean-up is always seen.
+    let some_finding = std::fs::read_dir(dir.join("findings")).unwrap().next().unwrap().unwrap().path();
+    for leftover in [dir.join(".tracewalk-killed.tmp"), some_finding.join(".tracewalk-killed.tmp")] {
+        std::fs::write(leftover, b"half a file").unwrap();
     }
     let last = run(&args(&dir, "2"));
     assert_eq!(last.status.code(), Some(1), "{}", stderr(&last));
     let last = summary(&last);
     assert_eq!(last["resumed_from"], checkpoint);
-    assert_eq!(last["runs"], 1200);
-    assert_eq!(last["session_runs"].as_u64().unwrap(), 1200 - checkpoint);
+    assert_eq!(last["runs"], 2000);
+    assert_eq!(last["session_runs"].as_u64().unwrap(), 2000 - checkpoint);
     assert_eq!(findings(&last), expected, "killed four times, the campaign finds what it finds whole");
     assert_eq!(hits(&last), hits(&reference), "hits are counted once each");
     check_campaign_dir(&dir);
     assert!(temp_files(&dir).is_empty(), "temporary files left by killed sessions are cleared");
     eprintln!(
-        "checkpoint before the last session: {checkpoint}; kills leaving temp files: {killed_with_temp_files}"
+        "kills (ms after start, checkpoint runs): {checkpoints:?}; kills leaving temp files: {killed_with_temp_files}"
     );
+}
+
+// --- Security --------------------------------------------------------------------------------
+
+/// Every file under `dir` whose name holds `needle`.
+fn files_named(dir: &Path, needle: &str) -> Vec<PathBuf> {
+    let mut out = Vec::new();
+    let mut stack = vec![dir.to_path_buf()];
+    while let Some(d) = stack.pop() {
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.file_name().unwrap().to_string_lossy().contains(needle) {
+                out.push(p.clone());
+            }
+            if p.symlink_metadata().unwrap().is_dir() {
+                stack.push(p);
+            }
+        }
+    }
+    out
+}
+
+/// Runs tracewalk in `cwd` under umask 000 with TMPDIR set (the shell here is the test's, to
+/// set the umask; tracewalk itself never uses one).
+fn tracewalk_in(cwd: &Path, tmpdir: &Path, args: &[&str]) -> Output {
+    Command::new("sh")
+        .args(["-c", "umask 000; exec \"$0\" \"$@\"", env!("CARGO_BIN_EXE_tracewalk")])
+        .args(args)
+        .current_dir(cwd)
+        .env("TMPDIR", tmpdir)
+        .output()
+        .unwrap()
+}
+
+/// Payloads a shell or a path built from them would act on: each would create a file named
+/// with PWNED somewhere under the test's directory.
+const PAYLOADS: &str = r#"builtins: false
+classes:
+  any:
+    - {name: subst, value: '$(touch PWNED-subst)'}
+    - {name: backticks, value: '`touch PWNED-ticks`'}
+    - {name: separator, value: '; touch PWNED-semi; '}
+    - {name: traversal, value: '../../PWNED-dots'}
+    - {name: placeholder, value: '{file}{port} touch PWNED-file'}
+"#;
+
+#[test]
+fn generated_payloads_never_reach_a_shell_or_a_path() {
+    let root = scratch("faults-payloads");
+    let cwd = root.join("work/here");
+    let (tmp, rec) = (root.join("tmp"), root.join("rec"));
+    for d in [&cwd, &tmp, &rec] {
+        std::fs::create_dir_all(d).unwrap();
+    }
+    let hostile = root.join("payloads.yaml");
+    std::fs::write(&hostile, PAYLOADS).unwrap();
+    let exec = target(&format!("record {} {{file}}", rec.display()));
+    let out = tracewalk_in(
+        &cwd,
+        &tmp,
+        &[
+            "hunt",
+            lamp_model().to_str().unwrap(),
+            "--exec",
+            &exec,
+            "--mode",
+            "rare",
+            "--hostile",
+            hostile.to_str().unwrap(),
+            "--hostile-rate",
+            "1",
+            "--budget",
+            "25",
+            "--shrink-runs",
+            "40",
+            "-o",
+            "campaign",
+            "--json",
+        ],
+    );
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    let mut payloads_seen = BTreeSet::new();
+    let mut runs = 0;
+    for entry in std::fs::read_dir(&rec).unwrap() {
+        let path = entry.unwrap().path();
+        if path.extension().is_some_and(|e| e == "bytes") {
+            let bytes = std::fs::read(&path).unwrap();
+            for needle in ["$(touch", "`touch", "; touch", "../../PWNED", "{file}{port}"] {
+                if bytes.windows(needle.len()).any(|w| w == needle.as_bytes()) {
+                    payloads_seen.insert(needle);
+                }
+            }
+            continue;
+        }
+        runs += 1;
+        // The command line is exactly the one given, {file} replaced by a temporary file's path.
+        let record = std::fs::read_to_string(&path).unwrap();
+        let argv: Vec<&str> = record.split('\0').collect();
+        assert_eq!(argv.len(), 5, "{argv:?}");
+        assert_eq!(argv[..3], [misbehave().to_str().unwrap(), "record", rec.to_str().unwrap()]);
+        let file = Path::new(argv[3]);
+        assert_eq!(file.parent(), Some(tmp.as_path()), "{argv:?}");
+        let name = file.file_name().unwrap().to_str().unwrap();
+        assert!(name.starts_with("tracewalk-") && name.ends_with(".trace-bytes"), "{name}");
+        assert_eq!(argv[4], "mode=600", "the trace's temporary file is owner-only under umask 000");
+    }
+    assert!(runs >= 25, "{runs} runs recorded");
+    assert_eq!(payloads_seen.len(), 5, "every payload was sent: {payloads_seen:?}");
+    assert_eq!(files_named(&root, "PWNED"), Vec::<PathBuf>::new());
+    assert_eq!(std::fs::read_dir(&tmp).unwrap().count(), 0, "temporary files are removed");
+    // Stored findings: hash names, fixed file names, owner-only, although umask is 000.
+    let s = summary(&out);
+    assert!(!s["findings"].as_array().unwrap().is_empty());
+    let campaign = cwd.join("campaign");
+    check_campaign_dir(&campaign);
+    let mut stack = vec![campaign];
+    while let Some(d) = stack.pop() {
+        let mode = std::fs::metadata(&d).unwrap().permissions().mode();
+        assert_eq!(mode & 0o077, 0, "{} has mode {mode:o}", d.display());
+        for e in std::fs::read_dir(&d).unwrap() {
+            let p = e.unwrap().path();
+            if p.is_dir() {
+                stack.push(p);
+            } else {
+                let mode = std::fs::metadata(&p).unwrap().permissions().mode();
+                assert_eq!(mode & 0o077, 0, "{} has mode {mode:o}", p.display());
+            }
+        }
+    }
+}
+
+#[test]
+fn hostile_traces_models_and_manifests_stay_inside_the_given_paths() {
+    let root = scratch("faults-hostile-files");
+    let cwd = root.join("work/here");
+    let tmp = root.join("tmp");
+    std::fs::create_dir_all(&cwd).unwrap();
+    std::fs::create_dir_all(&tmp).unwrap();
+    let crash = target("crash-always");
+    // A trace whose header fields and messages look like paths and commands.
+    let trace = "%tracewalk-trace 1\n%source ../../PWNED-source\n%signature ../../PWNED-signature\n\
+                 %model /tmp/PWNED-model\n\n@1\n../../PWNED-message\\n\n@2\n$(touch PWNED-subst)\\n\n@end\n";
+    assert_eq!(Trace::parse(trace).unwrap().messages.len(), 2);
+    std::fs::write(cwd.join("in.trace"), trace).unwrap();
+    let out = tracewalk_in(&cwd, &tmp, &["replay", "in.trace", "--exec", &crash, "-q"]);
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    let out = tracewalk_in(&cwd, &tmp, &["shrink", "in.trace", "--exec", &crash, "-o", "small.trace"]);
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    let small = Trace::parse(&std::fs::read_to_string(cwd.join("small.trace")).unwrap()).unwrap();
+    assert_eq!(small.messages.len(), 0);
+
+    // A model whose every string is such a value: learned from a corpus of them.
+    let corpus = root.join("corpus");
+    std::fs::create_dir_all(&corpus).unwrap();
+    let lines: String = (0..40)
+        .map(|i| match i % 4 {
+            0 => format!("GET ../../PWNED-model-{i}\n"),
+            1 => format!("PUT /tmp/PWNED-abs-{i}\n"),
+            2 => format!("RUN $(touch PWNED-run-{i}); `touch PWNED-tick`\n"),
+            _ => "QUIT {file}\n".to_string(),
+        })
+        .collect();
+    std::fs::write(corpus.join("s.txt"), lines.repeat(3)).unwrap();
+    let model = cwd.join("hostile.model");
+    let out = tracewalk_in(&cwd, &tmp, &["learn", "../../corpus", "-o", "hostile.model", "-q"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
+    let m = model.to_str().unwrap();
+    let out = tracewalk_in(&cwd, &tmp, &["gen", m, "-n", "5", "-o", "gen"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
+    let out = tracewalk_in(&cwd, &tmp, &["seed", m, "-n", "5", "-o", "seeds"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
+    let out =
+        tracewalk_in(&cwd, &tmp, &["hunt", m, "--exec", &crash, "--budget", "5", "-o", "camp", "--json"]);
+    assert_eq!(out.status.code(), Some(1), "{}", stderr(&out));
+    check_campaign_dir(&cwd.join("camp"));
+    let names = |d: &str| -> Vec<String> {
+        std::fs::read_dir(cwd.join(d))
+            .unwrap()
+            .map(|e| e.unwrap().file_name().into_string().unwrap())
+            .collect()
+    };
+    assert!(names("gen").iter().all(|n| n.len() == 10 && n.ends_with(".trace")), "{:?}", names("gen"));
+    assert!(names("seeds").iter().all(|n| n.len() == 32 && n.bytes().all(|b| b.is_ascii_hexdigit())));
+    assert_eq!(files_named(&root, "PWNED"), Vec::<PathBuf>::new());
+    assert!(!Path::new("/tmp/PWNED-model").exists() && !Path::new("/tmp/PWNED-abs-1").exists());
+
+    // A manifest whose include patterns point outside its directory reads nothing there.
+    let secret = root.join("secret");
+    std::fs::create_dir_all(&secret).unwrap();
+    std::fs::write(secret.join("s.txt"), "TOPSECRET line\n".repeat(50)).unwrap();
+    let corp = root.join("corp");
+    std::fs::create_dir_all(&corp).unwrap();
+    std::fs::write(corp.join("a.txt"), "HELLO there\nBYE\n".repeat(30)).unwrap();
+    std::fs::write(
+        corp.join("corpus.yaml"),
+        "include: ['*.txt', '../secret/*', '/**/secret/*', '**/../secret/s.txt']\nformat: lines\n",
+    )
+    .unwrap();
+    let out = tracewalk_in(&cwd, &tmp, &["learn", corp.to_str().unwrap(), "-o", "corp.model", "-q"]);
+    assert_eq!(out.status.code(), Some(0), "{}", stderr(&out));
+    let bytes = std::fs::read(cwd.join("corp.model")).unwrap();
+    assert!(!bytes.windows(9).any(|w| w == b"TOPSECRET"), "the manifest reached outside its directory");
+    assert!(bytes.windows(5).any(|w| w == b"HELLO"));
+}
+
+#[test]
+fn a_symbolic_link_in_the_campaign_directory_is_never_written_through() {
+    let root = scratch("faults-symlink");
+    let outside = root.join("outside");
+    std::fs::create_dir_all(&outside).unwrap();
+    let camp = root.join("camp");
+    std::fs::create_dir_all(camp.join("findings")).unwrap();
+    // The directory the next finding would be stored in, planted as a link to elsewhere.
+    let signature = "SIGABRT: fatal: the lamp table is gone";
+    std::os::unix::fs::symlink(&outside, camp.join("findings").join(finding_id(signature))).unwrap();
+    let out = hunt(lamp_model(), &camp, &["--exec", &target("crash-always")], &["--budget", "3"]);
+    assert_eq!(out.status.code(), Some(2), "{}", stdout(&out));
+    let err = stderr(&out);
+    let last = err.lines().last().unwrap_or("");
+    assert!(last.starts_with("tracewalk: ") && last.contains("symbolic link"), "{err}");
+    assert!(last.contains(&finding_id(signature)), "{err}");
+    assert_eq!(std::fs::read_dir(&outside).unwrap().count(), 0, "nothing written through the link");
 }
