@@ -419,9 +419,10 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
         killed_with_temp_files += usize::from(!temp_files(&dir).is_empty());
     }
     // What a kill in the middle of a write leaves, planted so that the clean-up is always seen.
-    let some_finding = std::fs::read_dir(dir.join("findings")).unwrap().next().unwrap().unwrap().path();
-    for leftover in [dir.join(".tracewalk-killed.tmp"), some_finding.join(".tracewalk-killed.tmp")] {
-        std::fs::write(leftover, b"half a file").unwrap();
+    let mut places = vec![dir.clone()];
+    places.extend(std::fs::read_dir(dir.join("findings")).into_iter().flatten().map(|e| e.unwrap().path()));
+    for place in &places {
+        std::fs::write(place.join(".tracewalk-killed.tmp"), b"half a file").unwrap();
     }
     let last = run(&args(&dir, "2"));
     assert_eq!(last.status.code(), Some(1), "{}", stderr(&last));
