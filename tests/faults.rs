@@ -123,6 +123,12 @@ fn a_target_crashing_on_every_input_is_one_finding_shrunk_to_nothing() {
     let replay = tracewalk(&["replay", f["shrunk"].as_str().unwrap(), "--exec", &exec, "-q"]);
     assert_eq!(replay.status.code(), Some(1), "{}", stdout(&replay));
     none_left_alive(&pids);
+    // A target that cannot start: one line, exit 2, the cause said once.
+    let missing = tracewalk(&["replay", f["shrunk"].as_str().unwrap(), "--exec", "/nonexistent/target"]);
+    assert_eq!(missing.status.code(), Some(2));
+    let err = stderr(&missing);
+    assert_eq!(err.lines().count(), 1, "{err}");
+    assert_eq!(err.matches("No such file or directory").count(), 1, "{err}");
 }
 
 #[test]
@@ -397,7 +403,10 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
         a
     };
     let run = |a: &[String]| Command::new(env!("CARGO_BIN_EXE_tracewalk")).args(a).output().unwrap();
+    let started = Instant::now();
     let reference = run(&args(&scratch("faults-kill-reference"), "1"));
+    // Kill moments scale with how fast this machine runs the campaign whole.
+    let whole = started.elapsed();
     let reference = summary(&reference);
     let expected = findings(&reference);
     assert!(expected.len() >= 2, "{expected:?}");
@@ -411,7 +420,7 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
     let mut checkpoints = Vec::new();
     let mut killed_with_temp_files = 0;
     for _ in 0..4 {
-        let delay = Duration::from_millis(rng.random_range(300..2500));
+        let delay = whole.mul_f64(rng.random_range(0.05..0.3));
         let mut child = Command::new(env!("CARGO_BIN_EXE_tracewalk"))
             .args(args(&dir, "2"))
             .stdout(Stdio::null())
@@ -444,7 +453,7 @@ fn sigkill_at_seeded_moments_loses_nothing_and_resumes_to_the_same_findings() {
     check_campaign_dir(&dir);
     assert!(temp_files(&dir).is_empty(), "temporary files left by killed sessions are cleared");
     eprintln!(
-        "kills (ms after start, checkpoint runs): {checkpoints:?}; kills leaving temp files: {killed_with_temp_files}"
+        "whole campaign {whole:?}; kills (ms after start, checkpoint runs): {checkpoints:?}; kills leaving temp files: {killed_with_temp_files}"
     );
 }
 
