@@ -112,11 +112,28 @@ pub fn run() -> i32 {
     match result {
         Ok(code) => code,
         Err(e) => {
-            let text = format!("{e:#}");
-            eprintln!("tracewalk: {}", text.lines().next().unwrap_or("error"));
+            eprintln!("tracewalk: {}", one_line(&e));
             2
         }
     }
+}
+
+/// The error and its causes on one line, each cause once: library errors often name their
+/// source in their own message already.
+fn one_line(e: &anyhow::Error) -> String {
+    let mut text = String::new();
+    for cause in e.chain() {
+        let part = cause.to_string();
+        let part = part.lines().next().unwrap_or("").trim();
+        if part.is_empty() || text.contains(part) {
+            continue;
+        }
+        if !text.is_empty() {
+            text.push_str(": ");
+        }
+        text.push_str(part);
+    }
+    if text.is_empty() { "error".to_string() } else { text }
 }
 
 fn merge(args: MergeArgs) -> anyhow::Result<i32> {

@@ -128,9 +128,11 @@ impl Target for TcpTarget {
     }
 
     fn converse(&mut self, conversation: &mut dyn Conversation) -> Result<Report, HarnessError> {
+        // The run's time starts once the server accepts: a slow start is not the run's hang
+        // (and must not leave a connect with no time at all).
+        self.ensure_server()?;
         let start = Instant::now();
         let deadline = start + self.spec.timing.run_timeout;
-        self.ensure_server()?;
         if let Some(server) = &self.server {
             server.stderr.clear();
         }
@@ -138,7 +140,9 @@ impl Target for TcpTarget {
         let mut o = Observation::new(ProcessEnd::Running);
         o.replies_required = spec.framing.required();
         let mut timed_out = false;
-        let connect_wait = deadline.saturating_duration_since(Instant::now()).min(Duration::from_secs(2));
+        let connect_wait = deadline
+            .saturating_duration_since(Instant::now())
+            .clamp(Duration::from_millis(1), Duration::from_secs(2));
         match TcpStream::connect_timeout(&self.addr, connect_wait) {
             Ok(mut stream) => {
                 let _ = stream.set_nodelay(true);
@@ -199,6 +203,11 @@ impl Target for TcpTarget {
                         break;
                     }
                 }
+            }
+            // A loopback connect that times out reached a listener that does not accept (its
+            // queue is full): the target hangs. Refused means nobody listens.
+            Err(source) if source.kind() == std::io::ErrorKind::TimedOut && self.addr.ip().is_loopback() => {
+                timed_out = true;
             }
             Err(source) => {
                 let server_died = self.server.as_mut().is_some_and(|s| s.proc.try_status().is_some());
