@@ -6,9 +6,11 @@
 //!
 //! ```text
 //! cargo bench --bench hunt_figures -- [--seeds 5] [--budget 10000] [--baseline-budget 100000]
-//!     [--jobs 2] [--only lamp_hub|shop_server]
+//!     [--jobs 2] [--only lamp_hub|shop_server] [--arms rare,frontier,...]
 //! ```
 //!
+//! Model arms play sessions as `tracewalk hunt` does: live (copied values taken from the
+//! target's replies) when the model learned value flow and the target replies per message.
 //! A campaign stops at its budget or as soon as it has found every planted bug of its target.
 //! A bug a campaign never found counts as found after infinitely many runs, so a median is
 //! finite only when more than half the seeds found it; ratios against a baseline that never
@@ -176,10 +178,12 @@ struct Options {
     jobs: usize,
     /// Only this target (lamp_hub or shop_server).
     only: Option<String>,
+    /// Only these arms (names as printed, spaces as dashes); cells of the others print "—".
+    arms: Option<Vec<String>>,
 }
 
 fn parse_options() -> Options {
-    let mut o = Options { seeds: 5, budget: 10_000, baseline_budget: 100_000, jobs: 2, only: None };
+    let mut o = Options { seeds: 5, budget: 10_000, baseline_budget: 100_000, jobs: 2, only: None, arms: None };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < args.len() {
@@ -194,6 +198,7 @@ fn parse_options() -> Options {
             "--baseline-budget" => o.baseline_budget = value(i),
             "--jobs" => o.jobs = value(i) as usize,
             "--only" => o.only = args.get(i + 1).cloned(),
+            "--arms" => o.arms = args.get(i + 1).map(|a| a.split(',').map(str::to_string).collect()),
             // cargo bench passes --bench; anything else is a mistake worth knowing about.
             "--bench" => {
                 i += 1;
@@ -298,7 +303,8 @@ fn campaign(
     let summary = match arm.mode() {
         Some(mode) => {
             let generator = Generator::new(&s.model, GenOptions { mode, ..GenOptions::default() }).unwrap();
-            let mut source = ModelSource::new(generator, seed);
+            let live = !s.model.flow.is_empty() && targets[0].replies();
+            let mut source = ModelSource::new(generator, seed).with_live_replies(live);
             hunt::hunt(&mut source, targets, None, Resume::default(), &options, &mut observer)
         }
         None if arm == Arm::RandomTokens => {
@@ -324,7 +330,7 @@ fn campaign(
         let f = summary.findings.iter().find(|f| &f.signature() == signature);
         first.insert(name.clone(), f.map(|f| f.first_run));
         if let Some(t) = f.and_then(|f| f.shrunk.as_ref()) {
-            shrunk.insert(name.clone(), t.messages.len());
+            shrunk.insert(name.clone(), t.wire_messages());
         }
     }
     for f in &summary.findings {
@@ -404,7 +410,10 @@ fn main() {
         let mut firsts: BTreeMap<Arm, BTreeMap<String, Vec<Option<u64>>>> = BTreeMap::new();
         let mut shrunk: BTreeMap<String, Vec<usize>> = BTreeMap::new();
         let mut others: BTreeMap<String, usize> = BTreeMap::new();
-        for arm in Arm::ALL {
+        let chosen = |arm: Arm| {
+            o.arms.as_ref().is_none_or(|a| a.iter().any(|n| n.as_str() == arm.name().replace(' ', "-")))
+        };
+        for arm in Arm::ALL.into_iter().filter(|&a| chosen(a)) {
             let mut runs = 0;
             let mut time = Duration::ZERO;
             for seed in 1..=o.seeds {
@@ -440,7 +449,7 @@ fn main() {
         println!("|---|---|---|---|---|---|---|---|---|");
         for (bug, _, minimal) in &s.bugs {
             let cell = |arm: Arm| -> (String, Option<u64>) {
-                let v = &firsts[&arm][bug];
+                let Some(v) = firsts.get(&arm).and_then(|b| b.get(bug)) else { return ("—".into(), None) };
                 let found = v.iter().filter(|x| x.is_some()).count();
                 let budget = if arm.mode().is_some() { o.budget } else { o.baseline_budget };
                 let m = median(v);
@@ -455,6 +464,7 @@ fn main() {
             let (mutation, mutation_m) = cell(Arm::ByteMutation);
             let best = [rare_m, frontier_m].into_iter().flatten().min();
             let ratio = match (best, mutation_m) {
+                _ if !firsts.contains_key(&Arm::ByteMutation) => "—".to_string(),
                 (Some(b), Some(m)) => format!("{:.0}×", m as f64 / b.max(1) as f64),
                 (Some(b), None) => format!("≥ {:.0}×", o.baseline_budget as f64 / b.max(1) as f64),
                 (None, _) => "—".to_string(),
