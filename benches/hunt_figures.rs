@@ -183,7 +183,8 @@ struct Options {
 }
 
 fn parse_options() -> Options {
-    let mut o = Options { seeds: 5, budget: 10_000, baseline_budget: 100_000, jobs: 2, only: None, arms: None };
+    let mut o =
+        Options { seeds: 5, budget: 10_000, baseline_budget: 100_000, jobs: 2, only: None, arms: None };
     let args: Vec<String> = std::env::args().skip(1).collect();
     let mut i = 0;
     while i < args.len() {
