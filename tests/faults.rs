@@ -678,3 +678,33 @@ fn a_symbolic_link_in_the_campaign_directory_is_never_written_through() {
     assert!(last.contains(&finding_id(signature)), "{err}");
     assert_eq!(std::fs::read_dir(&outside).unwrap().count(), 0, "nothing written through the link");
 }
+
+#[test]
+fn a_second_campaign_on_a_busy_directory_is_refused() {
+    let dir = scratch("faults-busy");
+    let campaign = dir.join("campaign");
+    let (model, campaign_arg) = (lamp_model().to_str().unwrap(), campaign.to_str().unwrap());
+    // The first campaign's target sleeps, so it holds the directory for seconds.
+    let mut first = Command::new(env!("CARGO_BIN_EXE_tracewalk"))
+        .args(["hunt", model, "--exec", "sleep 5", "--timeout", "20s", "--budget", "1", "-o", campaign_arg])
+        .stdout(Stdio::null())
+        .stderr(Stdio::null())
+        .spawn()
+        .unwrap();
+    let lock = campaign.join("campaign.lock");
+    let waited = Instant::now();
+    while !lock.exists() && waited.elapsed() < Duration::from_secs(10) {
+        std::thread::sleep(Duration::from_millis(20));
+    }
+    assert!(lock.exists(), "the first campaign started");
+    let second = hunt(lamp_model(), &campaign, &["--exec", "true"], &["--budget", "1"]);
+    let err = stderr(&second);
+    assert_eq!(second.status.code(), Some(2), "{err}");
+    assert!(err.contains("another tracewalk hunt is using this campaign directory"), "{err}");
+    assert_eq!(err.trim().lines().count(), 1, "{err}");
+    first.kill().unwrap();
+    first.wait().unwrap();
+    // The lock dies with its process: a killed campaign does not keep its directory busy.
+    let after = hunt(lamp_model(), &campaign, &["--exec", "true"], &["--budget", "2"]);
+    assert_eq!(after.status.code(), Some(0), "{}", stderr(&after));
+}

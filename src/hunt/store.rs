@@ -2,6 +2,7 @@
 //!
 //! ```text
 //! DIR/campaign.json                  identity, runs done, hits per finding (checkpoint)
+//! DIR/campaign.lock                  locked while a campaign runs on DIR (a second one is refused)
 //! DIR/findings/<id>/original.trace   the generated trace that failed first
 //! DIR/findings/<id>/shrunk.trace     the shrunk trace
 //! DIR/findings/<id>/output.txt       what the target did on the original trace (bounded)
@@ -73,6 +74,10 @@ pub struct Store {
     dir: PathBuf,
     identity: BTreeMap<String, String>,
     target: String,
+    /// Held (an exclusive advisory lock on `DIR/campaign.lock`) while the store is open, so a
+    /// second campaign on the same directory is refused rather than clearing the first one's
+    /// temporary files or racing its checkpoint.
+    _lock: std::fs::File,
 }
 
 /// The file-name id of a signature.
@@ -96,6 +101,28 @@ fn make_dir(path: &Path) -> Result<(), HuntError> {
     }
 }
 
+/// Takes the campaign directory's lock (released when the file closes, also when the process
+/// is killed).
+fn lock_campaign(dir: &Path) -> Result<std::fs::File, HuntError> {
+    use std::os::unix::fs::OpenOptionsExt;
+    let path = dir.join("campaign.lock");
+    let file = std::fs::OpenOptions::new()
+        .create(true)
+        .truncate(false)
+        .write(true)
+        .mode(0o600)
+        .custom_flags(libc::O_NOFOLLOW)
+        .open(&path)
+        .map_err(|e| store_error(&path, format!("cannot open: {e}")))?;
+    match file.try_lock() {
+        Ok(()) => Ok(file),
+        Err(std::fs::TryLockError::WouldBlock) => {
+            Err(store_error(dir, "another tracewalk hunt is using this campaign directory"))
+        }
+        Err(std::fs::TryLockError::Error(e)) => Err(store_error(&path, format!("cannot lock: {e}"))),
+    }
+}
+
 fn store_error(path: &Path, problem: impl std::fmt::Display) -> HuntError {
     HuntError::Store { path: path.to_path_buf(), problem: problem.to_string() }
 }
@@ -108,8 +135,9 @@ impl Store {
         target: &str,
     ) -> Result<(Store, Resume), HuntError> {
         make_dir(&dir.join("findings"))?;
+        let lock = lock_campaign(dir)?;
         let identity: BTreeMap<String, String> = identity.iter().cloned().collect();
-        let store = Store { dir: dir.to_path_buf(), identity, target: target.to_string() };
+        let store = Store { dir: dir.to_path_buf(), identity, target: target.to_string(), _lock: lock };
         let state_path = dir.join("campaign.json");
         let state = match std::fs::read(&state_path) {
             Ok(bytes) => Some(
