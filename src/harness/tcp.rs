@@ -18,11 +18,12 @@ use super::{CommandLine, Conversation, HarnessError, Report, Scripted, Target, T
 /// How long a crashing server may take to be seen as exited after the connection dropped.
 const EXIT_GRACE: Duration = Duration::from_millis(500);
 /// How long a server that closed the connection without a word may take to be seen as exited
-/// (a panicking Rust server drops its connections while unwinding, just before it exits). As
-/// long as for a silent one: on a loaded machine a dying server can take a few hundred
-/// milliseconds to exit, and a crash seen late is either missed or blamed on the next trace.
-/// Servers that close on purpose mostly say so (`Connection: close`), which costs no wait.
-const CLOSE_GRACE: Duration = EXIT_GRACE;
+/// (a panicking Rust server drops its connections while unwinding, just before it exits). Short,
+/// because many servers close quietly on input they dislike and live on; a server that also
+/// wrote to stderr during the run (a panic message, a backtrace) gets the full [`EXIT_GRACE`]:
+/// on a loaded machine a dying server can take a few hundred milliseconds to exit, and a crash
+/// seen late is either missed or blamed on the next trace.
+const CLOSE_GRACE: Duration = Duration::from_millis(100);
 /// The longer wait for a server that wrote to stderr during the grace above but did not exit.
 const DYING_GRACE: Duration = Duration::from_secs(3);
 
@@ -231,7 +232,9 @@ impl Target for TcpTarget {
         let quiet_close =
             o.replies.last().is_some_and(|r| r.end == ReplyEnd::Closed && !closes_connection(&r.bytes));
         if let Some(server) = &mut self.server {
-            let grace = if hung {
+            // The collector was cleared when the run began: this is the run's stderr.
+            let wrote = !server.stderr.snapshot().is_empty();
+            let grace = if hung || (quiet_close && wrote) {
                 EXIT_GRACE
             } else if quiet_close {
                 CLOSE_GRACE
