@@ -9,6 +9,7 @@
 # Usage: benches/fuzz_coverage.sh [RUNS] [SEEDS]     (defaults: 200000 executions, 5 seeds)
 set -euo pipefail
 cd "$(dirname "$0")/.."
+. benches/fuzz_corpora.sh
 runs="${1:-200000}"
 seeds="${2:-5}"
 work="$(mktemp -d)"
@@ -21,50 +22,12 @@ bin="${CARGO_TARGET_DIR:-fuzz/target}/$host/release"
 tw="${CARGO_TARGET_DIR:-target}/release/tracewalk"
 
 # b: the training requests, one file per session (responses removed: the harness parses requests).
-mkdir -p "$work/training"
-python3 - "$work/training" corpora/shop-api/sessions <<'PY'
-import os, re, sys
-out, src = sys.argv[1], sys.argv[2]
-def messages(data):
-    pos = 0
-    while pos < len(data):
-        end = data.find(b"\r\n\r\n", pos)
-        if end < 0:
-            return
-        head = data[pos:end + 4]
-        body_start = end + 4
-        m = re.search(rb"(?im)^content-length:\s*(\d+)", head)
-        if re.search(rb"(?im)^transfer-encoding:\s*chunked", head):
-            p = body_start
-            while True:
-                line_end = data.index(b"\r\n", p)
-                size = int(data[p:line_end].split(b";")[0], 16)
-                p = line_end + 2 + size + 2
-                if size == 0:
-                    break
-            body_end = p
-        else:
-            body_end = body_start + (int(m.group(1)) if m else 0)
-        yield data[pos:body_end]
-        pos = body_end
-for name in sorted(os.listdir(src)):
-    data = open(os.path.join(src, name), "rb").read()
-    requests = b"".join(m for m in messages(data) if not m.startswith(b"HTTP/"))
-    open(os.path.join(out, name), "wb").write(requests)
-PY
+training_corpus "$work/training" shop-api
 files=$(ls "$work/training" | wc -l)
 
 # c, d: a generated seed corpus with the same number of files, from the model the targets embed.
 "$tw" learn corpora/shop-api --order 2,3 -o "$work/shop.model" -q
-n=$files
-while :; do
-    rm -rf "$work/seeds"
-    "$tw" seed "$work/shop.model" -n "$n" -o "$work/seeds" --mode "${SEED_MODE:-plausible}" 2>/dev/null
-    have=$(ls "$work/seeds" | wc -l)
-    [ "$have" -ge "$files" ] && break
-    n=$((n + files - have))
-done
-ls "$work/seeds" | sort | tail -n +$((files + 1)) | while read -r f; do rm "$work/seeds/$f"; done
+seed_corpus "$tw" "$work/shop.model" "$work/seeds" "$files"
 
 arm() { # arm name, binary, corpus source (or empty), seed -> prints final cov
     local bin_name="$1" source="$2" seed="$3" dir

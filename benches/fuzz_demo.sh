@@ -18,6 +18,7 @@
 #        DEMO is lamp_hub (default) or shop_server; defaults 100000 executions, 5 seeds, RUNS.
 set -euo pipefail
 cd "$(dirname "$0")/.."
+. benches/fuzz_corpora.sh
 demo="${1:-lamp_hub}"
 runs="${2:-100000}"
 seeds="${3:-5}"
@@ -38,55 +39,12 @@ bin="${CARGO_TARGET_DIR:-fuzz/target}/$host/release"
 tw="$target_dir/release/tracewalk"
 
 # b: the training sessions as a client sends them (requests only, one file per session).
-mkdir -p "$work/training"
-python3 - "$work/training" "corpora/$corpus/sessions" "$corpus" <<'PY'
-import os, re, sys
-out, src, corpus = sys.argv[1], sys.argv[2], sys.argv[3]
-def http_requests(data):
-    pos = 0
-    while pos < len(data):
-        end = data.find(b"\r\n\r\n", pos)
-        if end < 0:
-            return
-        head = data[pos:end + 4]
-        body_start = end + 4
-        m = re.search(rb"(?im)^content-length:\s*(\d+)", head)
-        if re.search(rb"(?im)^transfer-encoding:\s*chunked", head):
-            p = body_start
-            while True:
-                line_end = data.index(b"\r\n", p)
-                size = int(data[p:line_end].split(b";")[0], 16)
-                p = line_end + 2 + size + 2
-                if size == 0:
-                    break
-            body_end = p
-        else:
-            body_end = body_start + (int(m.group(1)) if m else 0)
-        if not head.startswith(b"HTTP/"):
-            yield data[pos:body_end]
-        pos = body_end
-reply = re.compile(rb"^(OK|ERR|VAL|EVT)( |$)")  # the reply_pattern of corpora/lamp-control
-for name in sorted(os.listdir(src)):
-    data = open(os.path.join(src, name), "rb").read()
-    if corpus == "shop-api":
-        requests = b"".join(http_requests(data))
-    else:
-        requests = b"".join(l for l in data.splitlines(keepends=True) if not reply.match(l))
-    open(os.path.join(out, name), "wb").write(requests)
-PY
+training_corpus "$work/training" "$corpus"
 files=$(ls "$work/training" | wc -l)
 
 # c, d: a generated seed corpus with the same number of files, from the model the targets embed.
 "$tw" learn "corpora/$corpus" --order 2,3 -o "$work/demo.model" -q
-n=$files
-while :; do
-    rm -rf "$work/seeds"
-    "$tw" seed "$work/demo.model" -n "$n" -o "$work/seeds" --mode "${SEED_MODE:-plausible}" 2>/dev/null
-    have=$(ls "$work/seeds" | wc -l)
-    [ "$have" -ge "$files" ] && break
-    n=$((n + files - have))
-done
-ls "$work/seeds" | sort | tail -n +$((files + 1)) | while read -r f; do rm "$work/seeds/$f"; done
+seed_corpus "$tw" "$work/demo.model" "$work/seeds" "$files"
 
 run() { # binary, corpus source (or empty), seed, executions -> engine output on stdout
     local bin_name="$1" source="$2" seed="$3" n="$4" dir
