@@ -23,22 +23,7 @@ use tracewalk::trace::Trace;
 /// The misbehaving target program, built once per test binary.
 fn misbehave() -> &'static Path {
     static BIN: OnceLock<PathBuf> = OnceLock::new();
-    BIN.get_or_init(|| {
-        let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("faults-bin");
-        std::fs::create_dir_all(&dir).unwrap();
-        let source = Path::new(env!("CARGO_MANIFEST_DIR")).join("tests/targets/misbehave.rs");
-        let tmp = dir.join(format!("misbehave.{}.tmp", std::process::id()));
-        let status = Command::new(std::env::var("RUSTC").unwrap_or_else(|_| "rustc".into()))
-            .args(["--edition", "2024", "-O", "-o"])
-            .arg(&tmp)
-            .arg(&source)
-            .status()
-            .expect("rustc runs");
-        assert!(status.success(), "building misbehave.rs");
-        let out = dir.join("misbehave");
-        std::fs::rename(&tmp, &out).unwrap();
-        out
-    })
+    BIN.get_or_init(|| hunting::build_std_program("tests/targets/misbehave.rs", "misbehave"))
 }
 
 /// `misbehave ARGS` as a command line for --exec or --spawn.

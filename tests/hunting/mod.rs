@@ -16,11 +16,13 @@ pub fn scratch(name: &str) -> PathBuf {
     dir
 }
 
-fn built(name: &str) -> PathBuf {
+/// Builds a std-only program from `source` (relative to the repository) into this test
+/// binary's temporary directory, named `name`.
+pub fn build_std_program(source: &str, name: &str) -> PathBuf {
     let dir = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join("hunt-demo-bin");
     std::fs::create_dir_all(&dir).unwrap();
     let out = dir.join(name);
-    let source = Path::new(env!("CARGO_MANIFEST_DIR")).join("examples").join(format!("{name}.rs"));
+    let source = Path::new(env!("CARGO_MANIFEST_DIR")).join(source);
     let tmp = dir.join(format!("{name}.{}.tmp", std::process::id()));
     // std only, so plain rustc builds it in about a second (no dependencies to compile).
     let status = Command::new(std::env::var("RUSTC").unwrap_or_else(|_| "rustc".into()))
@@ -32,6 +34,10 @@ fn built(name: &str) -> PathBuf {
     assert!(status.success(), "building {name}");
     std::fs::rename(&tmp, &out).unwrap();
     out
+}
+
+fn built(name: &str) -> PathBuf {
+    build_std_program(&format!("examples/{name}.rs"), name)
 }
 
 /// The lamp hub demo target (stdin).
